@@ -1,0 +1,3 @@
+"""triage: route tickets and leads into queues."""
+
+__version__ = "0.1.0"

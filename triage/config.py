@@ -1,0 +1,190 @@
+"""Workspace configuration: the `triage.toml` file, read and written without extra dependencies.
+
+The config says which column is the item id, which is the queue (label), which is the arrival time,
+what role every other field plays, how the model is built and how each queue is routed.
+"""
+
+from __future__ import annotations
+
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from triage.core.schema import FieldRole, FieldSpec, Schema
+
+TEXT_MODELS = ("multinomial", "bernoulli", "complement", "complement-norm")
+DEFAULT_TARGET_PRECISION = 0.95
+
+
+class ConfigError(ValueError):
+    """The config file is missing, unreadable or inconsistent; the message names the file and key."""
+
+
+@dataclass
+class ModelSettings:
+    """How the model is built. 'auto' lets `train` pick by a quick cross-validation."""
+
+    text_model: str = "auto"
+    alpha_text: float | str = "auto"
+    alpha_fields: float = 1.0
+    prior: str = "fitted"  # fitted | uniform
+    bigrams: bool = False
+    min_count: int = 1
+    max_vocab: int = 100_000
+    max_token_chars: int = 40
+
+
+@dataclass
+class QueuePolicy:
+    """Routing rules for one queue."""
+
+    target_precision: float = DEFAULT_TARGET_PRECISION
+    never_auto: bool = False  # every item predicted here is held for a human, whatever the confidence
+    cutoff: float | None = None  # a fixed cutoff; None means: solved from held-out precision
+
+
+@dataclass
+class Config:
+    """Everything `triage.toml` holds."""
+
+    schema: Schema
+    model: ModelSettings = field(default_factory=ModelSettings)
+    queues: dict[str, QueuePolicy] = field(default_factory=dict)
+    target_precision: float = DEFAULT_TARGET_PRECISION
+    max_text_chars: int = 20_000
+
+    def policy(self, queue: str) -> QueuePolicy:
+        """The queue's routing rules; queues not named in the file get the defaults."""
+        if queue in self.queues:
+            return self.queues[queue]
+        return QueuePolicy(target_precision=self.target_precision)
+
+
+def _fail(path: Path | str, key: str, why: str) -> ConfigError:
+    return ConfigError(f"{path}: [{key}] {why}")
+
+
+def config_from_dict(data: dict[str, Any], path: Path | str = "triage.toml") -> Config:
+    """Build a Config from parsed TOML, with errors that name the file and the key."""
+    dat = data.get("data")
+    if not isinstance(dat, dict):
+        raise _fail(path, "data", "section is missing; it must name the id and label columns")
+    for key in ("id", "label"):
+        if not isinstance(dat.get(key), str) or not dat[key]:
+            raise _fail(path, f"data.{key}", "must name a column")
+    fields_raw = data.get("fields", {})
+    if not isinstance(fields_raw, dict) or not fields_raw:
+        raise _fail(path, "fields", "section is missing; name at least one text, category or number field")
+    specs: list[FieldSpec] = []
+    for name, spec in fields_raw.items():
+        if not isinstance(spec, dict):
+            raise _fail(path, f"fields.{name}", "must be a table with a role")
+        role_name = spec.get("role")
+        try:
+            role = FieldRole(role_name)
+        except ValueError:
+            allowed = ", ".join(r.value for r in FieldRole if r not in (FieldRole.ID, FieldRole.LABEL))
+            raise _fail(path, f"fields.{name}.role", f"is {role_name!r}; use one of {allowed}") from None
+        if role in (FieldRole.ID, FieldRole.LABEL):
+            raise _fail(path, f"fields.{name}.role", "id and label are named in [data], not as fields")
+        try:
+            weight = float(spec.get("weight", 1.0))
+            bins = int(spec.get("bins", 5))
+        except (TypeError, ValueError):
+            raise _fail(path, f"fields.{name}", "weight must be a number and bins an integer") from None
+        if weight <= 0 or bins < 1:
+            raise _fail(path, f"fields.{name}", "weight must be > 0 and bins >= 1")
+        specs.append(FieldSpec(name=name, role=role, weight=weight, bins=bins))
+    schema = Schema(fields=tuple(specs), id=dat["id"], label=dat["label"], time=dat.get("time"))
+
+    m = data.get("model", {})
+    model = ModelSettings(**{k: v for k, v in m.items() if k in ModelSettings.__dataclass_fields__})
+    unknown = set(m) - set(ModelSettings.__dataclass_fields__)
+    if unknown:
+        raise _fail(path, "model", f"unknown keys: {', '.join(sorted(unknown))}")
+    if model.text_model not in (*TEXT_MODELS, "auto"):
+        raise _fail(path, "model.text_model", f"is {model.text_model!r}; use auto or one of {', '.join(TEXT_MODELS)}")
+    if model.alpha_text != "auto" and (not isinstance(model.alpha_text, int | float) or model.alpha_text < 0):
+        raise _fail(path, "model.alpha_text", "must be 'auto' or a number >= 0")
+    if model.prior not in ("fitted", "uniform"):
+        raise _fail(path, "model.prior", "must be 'fitted' or 'uniform'")
+
+    routing = data.get("routing", {})
+    target = float(routing.get("target_precision", DEFAULT_TARGET_PRECISION))
+    if not 0 < target <= 1:
+        raise _fail(path, "routing.target_precision", "must be in (0, 1]")
+    queues: dict[str, QueuePolicy] = {}
+    for qname, q in data.get("queues", {}).items():
+        if not qname.strip():
+            raise _fail(path, "queues", "a queue name is empty")
+        cutoff = q.get("cutoff")
+        queues[qname] = QueuePolicy(
+            target_precision=float(q.get("target_precision", target)),
+            never_auto=bool(q.get("never_auto", False)),
+            cutoff=None if cutoff is None else float(cutoff),
+        )
+    return Config(
+        schema=schema,
+        model=model,
+        queues=queues,
+        target_precision=target,
+        max_text_chars=int(dat.get("max_text_chars", 20_000)),
+    )
+
+
+def load_config(path: Path) -> Config:
+    """Read `triage.toml`."""
+    if not path.exists():
+        raise ConfigError(f"{path}: no config here; run `triage init --from FILE` or `triage demo` first")
+    try:
+        data = tomllib.loads(path.read_text(encoding="utf-8"))
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+        raise ConfigError(f"{path}: not valid TOML: {exc}") from None
+    return config_from_dict(data, path)
+
+
+def _toml_value(v: Any) -> str:
+    if isinstance(v, bool):
+        return "true" if v else "false"
+    if isinstance(v, int | float):
+        return repr(v)
+    s = str(v).replace("\\", "\\\\").replace('"', '\\"')
+    return f'"{s}"'
+
+
+def _toml_key(k: str) -> str:
+    return k if k.replace("_", "").replace("-", "").isalnum() else _toml_value(k)
+
+
+def dump_config(cfg: Config, comments: dict[str, str] | None = None) -> str:
+    """Render a Config as TOML; `comments` maps a field name to a note written above it (why it was inferred)."""
+    comments = comments or {}
+    s = cfg.schema
+    out = ["# triage workspace config: review the field roles, then run `triage import` and `triage train`.", ""]
+    out += ["[data]", f"id = {_toml_value(s.id)}", f"label = {_toml_value(s.label)}"]
+    if s.time:
+        out.append(f"time = {_toml_value(s.time)}")
+    out += [f"max_text_chars = {cfg.max_text_chars}", ""]
+    for f in s.fields:
+        if f.name in comments:
+            out.append(f"# {comments[f.name]}")
+        out.append(f"[fields.{_toml_key(f.name)}]")
+        out.append(f"role = {_toml_value(f.role.value)}")
+        if f.role is FieldRole.TEXT:
+            out.append(f"weight = {f.weight!r}")
+        if f.role is FieldRole.NUMBER:
+            out.append(f"bins = {f.bins}")
+        out.append("")
+    out.append("[model]")
+    for k in ModelSettings.__dataclass_fields__:
+        out.append(f"{k} = {_toml_value(getattr(cfg.model, k))}")
+    out += ["", "[routing]", f"target_precision = {cfg.target_precision!r}", ""]
+    for qname, q in cfg.queues.items():
+        out.append(f"[queues.{_toml_key(qname)}]")
+        out.append(f"target_precision = {q.target_precision!r}")
+        out.append(f"never_auto = {_toml_value(q.never_auto)}")
+        if q.cutoff is not None:
+            out.append(f"cutoff = {q.cutoff!r}")
+        out.append("")
+    return "\n".join(out)
