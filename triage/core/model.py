@@ -1,0 +1,288 @@
+"""The Naive Bayes router: text and field evidence in one posterior, derived from CountTables.
+
+One joint log-likelihood per queue c:  log prior(c) + text part(c) + sum over fields of log P(value | c).
+Every text event model is kept in one factored form, so that both the batch product and a correction's update
+touch as little as possible:
+
+    text part(c) = scale[c] * (x . A[c] + len(x) * B[c]) + C[c]
+
+  multinomial      A = log(n_ct + a)            B = -log(N_c + a V)   scale = 1   C = 0
+  bernoulli        A = log(df+a) - log(N-df+a)  B = 0                 scale = 1   C = sum_t log(N-df+a) - V log(N+2a)
+  complement       A = -log(comp_ct)            B = log(S_c)          scale = 1   C = 0
+  complement-norm  A = log(comp_ct)             B = -log(S_c)         scale = 1/(sum_t log comp_ct - V log S_c)
+
+with comp_ct = sum_over_queues n_.t + a - n_ct and S_c = sum_t comp_ct (Rennie et al. 2003, as in scikit-learn's
+ComplementNB). The per-token weight behind a decision is scale[c] * (A[c, t] + B[c]) (Bernoulli: log p_ct).
+
+A plain base class (the model) owns posteriors, normalisation and the single-item path; the event model only
+decides how A, B, C and scale come from the counts.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import asdict, dataclass
+from typing import Any
+
+import numpy as np
+from scipy.special import logsumexp
+
+from triage.core.counts import CountTables
+from triage.core.encode import EncodedBatch, EncodedItem, Encoder
+from triage.core.schema import Schema
+from triage.core.tokens import Tokenizer
+
+TEXT_MODELS = ("multinomial", "bernoulli", "complement", "complement-norm")
+
+
+@dataclass(frozen=True)
+class ModelSpec:
+    """How log tables are derived from counts. alpha = 0 is allowed for multinomial text and for fields."""
+
+    text_model: str = "multinomial"
+    alpha_text: float = 1.0
+    alpha_fields: float = 1.0
+    prior: str = "fitted"  # fitted | uniform
+    bigrams: bool = False
+    min_count: int = 1
+    max_vocab: int | None = None
+    max_token_chars: int = 40
+
+    def __post_init__(self) -> None:
+        if self.text_model not in TEXT_MODELS:
+            raise ValueError(f"text model {self.text_model!r} is not one of {', '.join(TEXT_MODELS)}")
+        for name in ("alpha_text", "alpha_fields"):
+            a = getattr(self, name)
+            if not np.isfinite(a) or a < 0:
+                raise ValueError(f"{name} must be a finite number >= 0, got {a!r}")
+        if self.alpha_text == 0 and self.text_model != "multinomial":
+            raise ValueError(f"{self.text_model} text needs alpha_text > 0 (zero counts would give log 0 - log 0)")
+        if self.prior not in ("fitted", "uniform"):
+            raise ValueError(f"prior must be 'fitted' or 'uniform', got {self.prior!r}")
+
+    def to_dict(self) -> dict[str, Any]:
+        return asdict(self)
+
+
+def _log(x: np.ndarray) -> np.ndarray:
+    with np.errstate(divide="ignore"):
+        return np.log(x)
+
+
+class NaiveBayes:
+    """A fitted router. Learned state has a trailing underscore; `counts` is the truth, the rest is derived."""
+
+    def __init__(self, encoder: Encoder, counts: CountTables, spec: ModelSpec) -> None:
+        self.encoder = encoder
+        self.counts = counts
+        self.spec = spec
+        self.refresh()
+
+    # ----- construction ------------------------------------------------------------------------------------
+    @classmethod
+    def fit(cls, schema: Schema, items: Sequence[Mapping[str, Any]], labels: Sequence[str],
+            spec: ModelSpec | None = None, *, encoder: Encoder | None = None,
+            batch: EncodedBatch | None = None) -> NaiveBayes:
+        """Fit on labelled items. Pass a fitted `encoder` and its `batch` to reuse one tokenisation pass."""
+        spec = spec or ModelSpec()
+        if encoder is None:
+            tok = Tokenizer(bigrams=spec.bigrams, max_token_chars=spec.max_token_chars)
+            encoder = Encoder(schema, tok, min_count=spec.min_count, max_vocab=spec.max_vocab).fit(items)
+        if batch is None:
+            batch = encoder.transform(items)
+        counts = CountTables([], encoder.n_terms, encoder_sizes(encoder))
+        counts.fit(batch, labels)
+        return cls(encoder, counts, spec)
+
+    @property
+    def queues(self) -> list[str]:
+        return self.counts.queues_
+
+    # ----- derived tables ----------------------------------------------------------------------------------
+    def refresh(self, columns: np.ndarray | None = None, queues: Sequence[int] | None = None) -> None:
+        """Recompute the log tables from the counts; with `columns`/`queues` only what a correction touched."""
+        c = self.counts
+        partial = (
+            columns is not None
+            and hasattr(self, "A_")
+            and self.A_.shape == c.token_count_.shape
+            and self.spec.text_model in ("multinomial", "bernoulli")
+        )
+        if partial:
+            self._refresh_text_partial(np.asarray(columns, dtype=np.int64), list(queues or range(c.n_queues)))
+        else:
+            self._refresh_text()
+        self._refresh_fields()
+        self._refresh_prior()
+
+    def _refresh_prior(self) -> None:
+        n = self.counts.class_count_
+        if self.spec.prior == "uniform" or n.sum() == 0:
+            self.log_prior_ = np.full(len(n), -np.log(max(len(n), 1)))
+        else:
+            self.log_prior_ = _log(n) - np.log(n.sum())
+
+    def _refresh_fields(self) -> None:
+        a = self.spec.alpha_fields
+        self.field_log_ = []
+        for k, f in enumerate(self.encoder.schema.value_fields):
+            counts = self.counts.field_count_[k]
+            width = self.encoder.n_codes(f)
+            full = np.zeros((counts.shape[0], width))
+            full[:, : counts.shape[1]] = counts
+            total = self.counts.class_count_[:, None]
+            with np.errstate(invalid="ignore", divide="ignore"):
+                table = _log(full + a) - _log(total + a * width)
+            self.field_log_.append(np.where(np.isnan(table), -np.inf, table))
+
+    def _refresh_text(self) -> None:
+        c, a, model = self.counts, self.spec.alpha_text, self.spec.text_model
+        n, df, N = c.token_count_, c.doc_freq_, c.class_count_
+        Q, V = n.shape
+        self.scale_ = np.ones(Q)
+        self.C_ = np.zeros(Q)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            if model == "multinomial":
+                self.A_ = _log(n + a)
+                self.B_ = -_log(n.sum(axis=1) + a * V)
+            elif model == "bernoulli":
+                absent = _log(N[:, None] - df + a)
+                self.A_ = _log(df + a) - absent
+                self.B_ = np.zeros(Q)
+                self.C_ = absent.sum(axis=1) - V * _log(N + 2 * a)
+            else:
+                comp = n.sum(axis=0, keepdims=True) + a - n
+                log_comp = _log(comp)
+                log_s = _log(comp.sum(axis=1))
+                if model == "complement":
+                    self.A_, self.B_ = -log_comp, log_s
+                else:
+                    self.A_, self.B_ = log_comp, -log_s
+                    self.scale_ = 1.0 / (log_comp.sum(axis=1) - V * log_s)
+        for name in ("A_", "B_", "C_", "scale_"):
+            arr = getattr(self, name)
+            arr[np.isnan(arr)] = -np.inf
+
+    def _refresh_text_partial(self, cols: np.ndarray, rows: list[int]) -> None:
+        """Multinomial and Bernoulli: a correction changes a few columns of a few rows, and each row's totals."""
+        c, a = self.counts, self.spec.alpha_text
+        V = c.n_terms
+        r = np.asarray(rows, dtype=np.int64)
+        n, df, N = c.token_count_, c.doc_freq_, c.class_count_
+        with np.errstate(invalid="ignore", divide="ignore"):
+            if self.spec.text_model == "multinomial":
+                self.A_[np.ix_(r, cols)] = _log(n[np.ix_(r, cols)] + a)
+                self.B_[r] = -_log(n[r].sum(axis=1) + a * V)
+            else:
+                # N_c moved, so every term's absence weight in these rows moved: whole rows, few of them
+                absent = _log(N[r, None] - df[r] + a)
+                self.A_[r] = _log(df[r] + a) - absent
+                self.C_[r] = absent.sum(axis=1) - V * _log(N[r] + 2 * a)
+
+    # ----- scoring -----------------------------------------------------------------------------------------
+    def _text_input(self, X: Any) -> Any:
+        if self.spec.text_model == "bernoulli":
+            X = X.copy()
+            X.data = (X.data > 0).astype(np.float64)
+        return X
+
+    def joint_log_likelihood(self, batch: EncodedBatch) -> np.ndarray:
+        """(n, Q) joint log-likelihoods, log P(c) + log P(x | c) up to a constant shared by all queues."""
+        X = self._text_input(batch.X)
+        lengths = np.asarray(X.sum(axis=1)).ravel()
+        with np.errstate(invalid="ignore"):
+            text = (np.asarray(X @ self.A_.T) + lengths[:, None] * self.B_) * self.scale_ + self.C_
+            jll = self.log_prior_ + text
+            for k, table in enumerate(self.field_log_):
+                jll = jll + table[:, batch.codes[:, k]].T
+        return _clean(jll)
+
+    def joint_log_likelihood_one(self, item: EncodedItem) -> np.ndarray:
+        """(Q,) joint log-likelihood of one item; reads columns of the tables, copies none of them."""
+        counts = item.token_counts
+        if self.spec.text_model == "bernoulli":
+            counts = np.ones_like(counts)
+        with np.errstate(invalid="ignore"):
+            text = (self.A_[:, item.token_ids] @ counts + counts.sum() * self.B_) * self.scale_ + self.C_
+            jll = self.log_prior_ + text
+            for k, table in enumerate(self.field_log_):
+                jll = jll + table[:, item.codes[k]]
+        return _clean(jll[None, :])[0]
+
+    def predict_log_proba(self, batch: EncodedBatch) -> np.ndarray:
+        return log_posterior(self.joint_log_likelihood(batch))
+
+    def predict_proba(self, batch: EncodedBatch) -> np.ndarray:
+        return np.exp(self.predict_log_proba(batch))
+
+    def predict(self, batch: EncodedBatch) -> list[str]:
+        idx = self.joint_log_likelihood(batch).argmax(axis=1)
+        return [self.queues[i] for i in idx]
+
+    # ----- learning from corrections -----------------------------------------------------------------------
+    def _sync_shape(self, item: Mapping[str, Any]) -> bool:
+        """Grow the encoder and the counts for an item's new tokens/values; True if the tables changed shape."""
+        new_tokens, new_levels = self.encoder.grow(item)
+        if new_tokens or new_levels:
+            self.counts.resize(self.encoder.n_terms, encoder_sizes(self.encoder))
+            return True
+        return False
+
+    def learn(self, item: Mapping[str, Any], queue: str) -> None:
+        """Learn one new labelled item (e.g. a routed item a person has now labelled)."""
+        grew = self._sync_shape(item)
+        n_before = self.counts.n_queues
+        enc = self.encoder.encode(item, allow_missing=True)
+        q = self.counts.learn(enc, queue)
+        self._after_change(enc, [q], full=grew or self.counts.n_queues != n_before)
+
+    def forget(self, item: Mapping[str, Any], queue: str) -> None:
+        """Forget one item learned under `queue`."""
+        enc = self.encoder.encode(item, allow_missing=True)
+        q = self.counts.forget(enc, queue)
+        self._after_change(enc, [q], full=False)
+
+    def relabel(self, item: Mapping[str, Any], old: str, new: str) -> None:
+        """The exact correction: forget under the old queue, learn under the new one."""
+        grew = self._sync_shape(item)
+        n_before = self.counts.n_queues
+        enc = self.encoder.encode(item, allow_missing=True)
+        a, b = self.counts.relabel(enc, old, new)
+        self._after_change(enc, [a, b], full=grew or self.counts.n_queues != n_before)
+
+    def _after_change(self, enc: EncodedItem, rows: list[int], full: bool) -> None:
+        if full:
+            self.refresh()
+        else:
+            self.refresh(columns=enc.token_ids, queues=rows)
+
+    def copy(self) -> NaiveBayes:
+        enc = Encoder.from_manifest(self.encoder.schema, self.encoder.to_manifest())
+        return NaiveBayes(enc, self.counts.copy(), self.spec)
+
+
+def encoder_sizes(encoder: Encoder) -> list[int]:
+    """Observed-code columns per value field (the unseen bucket is derived, not counted)."""
+    from triage.core.schema import FieldRole
+
+    return [len(encoder.levels_[f.name]) if f.role is FieldRole.CATEGORY else encoder.n_codes(f)
+            for f in encoder.schema.value_fields]
+
+
+def _clean(jll: np.ndarray) -> np.ndarray:
+    """NaN (from -inf + inf when alpha = 0) means "impossible under this queue"."""
+    jll = np.asarray(jll, dtype=np.float64)
+    jll[np.isnan(jll)] = -np.inf
+    return jll
+
+
+def log_posterior(jll: np.ndarray) -> np.ndarray:
+    """Normalise joint log-likelihoods by log-sum-exp; a row impossible under every queue becomes uniform."""
+    jll = np.atleast_2d(jll)
+    with np.errstate(invalid="ignore"):
+        norm = logsumexp(jll, axis=1, keepdims=True)
+        out = jll - norm
+    dead = ~np.isfinite(norm[:, 0])
+    if dead.any():
+        out[dead] = -np.log(jll.shape[1])
+    return out

@@ -1,0 +1,85 @@
+"""Tokenizer: Unicode words, with placeholders so that variable parts (links, addresses, numbers, ids) share evidence.
+
+One `regex.findall` pass finds candidate tokens; a cheap per-token check then maps links, e-mail addresses,
+numbers and long identifiers to one placeholder each. Doing the classification outside the pattern keeps the
+pattern free of capture groups, which is what makes `findall` fast.
+"""
+
+from __future__ import annotations
+
+import unicodedata
+from dataclasses import dataclass
+
+import regex
+
+URL = "<url>"
+EMAIL = "<email>"
+NUMBER = "<num>"
+IDENT = "<id>"
+PLACEHOLDERS = (URL, EMAIL, NUMBER, IDENT)
+
+# Links, e-mail addresses, then words of letters/marks/digits in any script, joined by - or / when the joined
+# parts look like one code (order numbers such as "VW-104233" or "2026/118").
+_TOKEN = regex.compile(
+    r"(?:https?://|www\.)[^\s<>\"'()\[\]]+"
+    r"|[\p{L}\p{N}._%+\-]+@[\p{L}\p{N}\-]+(?:\.[\p{L}\p{N}\-]+)+"
+    r"|\p{N}+(?:[.,]\p{N}+)+"
+    r"|[\p{L}\p{M}\p{N}]+(?:[\-/][\p{L}\p{M}\p{N}]+)*",
+    regex.VERSION1,
+)
+_NUMERIC = regex.compile(r"[\d.,]+")
+_LONG_ID_DIGITS = 6  # a run of this many digits reads as an account/order number, not a quantity
+
+
+@dataclass(frozen=True)
+class Tokenizer:
+    """Turns text into tokens; deterministic, and empty or missing text gives zero tokens.
+
+    `bigrams` adds adjacent word pairs ("not working") after the single words; `max_token_chars` cuts very long
+    tokens (base64 blobs, hashes) so they cannot blow up the vocabulary.
+    """
+
+    bigrams: bool = False
+    max_token_chars: int = 40
+
+    def words(self, text: str | None) -> list[str]:
+        """Single tokens, placeholders applied, in text order."""
+        if not text or not isinstance(text, str):
+            return []
+        text = unicodedata.normalize("NFKC", text).casefold()
+        out: list[str] = []
+        cap = self.max_token_chars
+        for tok in _TOKEN.findall(text):
+            if tok[0] == "h" and tok.startswith(("http://", "https://")) or tok.startswith("www."):
+                out.append(URL)
+            elif "@" in tok:
+                out.append(EMAIL)
+            elif tok.isalpha():
+                out.append(tok[:cap])
+            else:
+                out.extend(_classify(tok, cap))
+        return out
+
+    def tokens(self, text: str | None) -> list[str]:
+        """Words plus, when enabled, bigrams ("a b")."""
+        words = self.words(text)
+        if self.bigrams and len(words) > 1:
+            return words + [f"{a} {b}" for a, b in zip(words, words[1:], strict=False)]
+        return words
+
+
+def _classify(tok: str, cap: int) -> list[str]:
+    """Tokens that hold digits or joiners: numbers, identifiers, or joined parts to look at one by one."""
+    digits = sum(ch.isdigit() for ch in tok)
+    if digits >= _LONG_ID_DIGITS - 1 and not _NUMERIC.fullmatch(tok):
+        return [IDENT]  # "VW-104233", "ord-2026-0012", "a1b2c3d4e5"
+    if _NUMERIC.fullmatch(tok):
+        plain = digits == len(tok)
+        return [IDENT if plain and digits >= _LONG_ID_DIGITS else NUMBER]
+    if "-" in tok or "/" in tok:
+        out: list[str] = []
+        for part in regex.split(r"[\-/]", tok):
+            if part:
+                out.extend([part[:cap]] if part.isalpha() else _classify(part, cap))
+        return out
+    return [tok[:cap]]  # short codes such as "4g", "v2", "hc15" stay as they are
