@@ -1,0 +1,221 @@
+"""Guess a workspace config from a sample of an item file, with a reason for every column.
+
+The guess is a starting point for `triage init`: the reasons are written beside the fields so a person can
+check each role before importing and training.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+import warnings
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+
+from triage.config import Config, QueuePolicy
+from triage.core.schema import FieldRole, FieldSpec, Schema
+from triage.ingest import IngestError, read_raw_sample
+
+LABEL_NAMES = ("queue", "label", "team", "class", "category")  # in order of preference
+ID_NAMES = ("id", "key", "number")
+TIME_WORDS = ("received", "created", "date", "time", "timestamp", "arrived", "opened", "submitted")
+SAFETY_WORDS = ("safety", "security", "hazard", "incident", "urgent", "emergency", "self_harm", "selfharm")
+SAFETY_PRECISION = 0.99
+
+SHORT_TEXT_WEIGHT = 2.0  # subjects and titles: few words, each says a lot
+LONG_TEXT_CHARS = 60
+TEXT_MIN_MEAN_CHARS = 25
+MAX_CATEGORIES = 100
+
+
+def _words(name: str) -> list[str]:
+    """Split a column name into lower-case words: 'ReceivedAt' / 'received_at' -> ['received', 'at']."""
+    spaced = re.sub(r"([a-z0-9])([A-Z])", r"\1 \2", name)
+    return [w for w in re.split(r"[^0-9a-zA-Z]+", spaced.lower()) if w]
+
+
+def _cell(v: Any) -> str:
+    """A raw value as stripped text, '' for missing, so every format is judged the same way."""
+    if v is None or (isinstance(v, float) and math.isnan(v)) or v is pd.NA or v is pd.NaT:
+        return ""
+    if isinstance(v, bool):
+        return "true" if v else "false"
+    if isinstance(v, float) and v.is_integer():
+        return str(int(v))
+    if hasattr(v, "isoformat"):
+        return v.isoformat()
+    return str(v).strip()
+
+
+def _is_number(s: str) -> bool:
+    try:
+        return math.isfinite(float(s))
+    except ValueError:
+        return False
+
+
+def _pct(x: float) -> str:
+    return f"{100 * x:.0f}%"
+
+
+def _find_label(columns: list[str], label: str | None, source: str) -> tuple[str, str]:
+    if label is not None:
+        if label not in columns:
+            raise IngestError(f"{source}: no column {label!r} for the label (columns: {', '.join(columns)})")
+        return label, "the label (queue), as given"
+    for wanted in LABEL_NAMES:  # an exact name first, then a name containing the word
+        for c in columns:
+            if c.strip().lower() == wanted:
+                return c, f"the label (queue): the column is named {c!r}"
+    for wanted in LABEL_NAMES:
+        for c in columns:
+            if wanted in _words(c):
+                return c, f"the label (queue): the name contains {wanted!r}"
+    raise IngestError(
+        f"{source}: no column looks like the queue (named like {', '.join(LABEL_NAMES)}); "
+        f"name it with --label (columns: {', '.join(columns)})"
+    )
+
+
+def _looks_like_id_name(name: str) -> bool:
+    low = name.strip().lower()
+    words = _words(name)
+    return low in ID_NAMES or low.endswith("id") or (bool(words) and words[-1] in ID_NAMES)
+
+
+def _datetime_share(values: pd.Series) -> float:
+    if values.empty:
+        return 0.0
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        head = values.head(200)  # parsing mixed formats is slow; most columns are ruled out by a glance
+        share = float(pd.to_datetime(head, errors="coerce", utc=True, format="mixed").notna().mean())
+        if share < 0.5 or len(head) == len(values):
+            return share
+        parsed = pd.to_datetime(values, errors="coerce", utc=True, format="mixed")
+    return float(parsed.notna().mean())
+
+
+def infer_config(
+    path: Path | str, label: str | None = None, *, sample_rows: int = 5000
+) -> tuple[Config, dict[str, str]]:
+    """Guess a Config from the first `sample_rows` rows of a file; returns it with a reason per column.
+
+    Rules, in order (each column gets the first role that fits):
+      - label: the column given, else one named queue / label / team / class / category (exactly, then as a
+        word in the name). None found -> IngestError asking for --label.
+      - id: a column with a distinct, non-empty value on every sampled row whose name looks like an id
+        (id, *_id, *id, key, *number); else the first such all-distinct column. None -> IngestError.
+      - time: one column whose name suggests a time (received_at, created, date, time, timestamp, ...) and
+        whose values mostly parse as dates, or whose values are not numbers and >= 95% parse as dates.
+      - number: >= 95% of the non-empty values parse as numbers (the rest would be rejected on import).
+      - left out: an empty or single-valued column; an all-distinct short code without spaces (not the id).
+      - text: mean length >= 25 characters, or > 50% distinct and > 30 distinct values. Long text (mean
+        >= 60 characters) gets weight 1.0, short text (subjects, titles) weight 2.0.
+      - category: at most 100 distinct values or at most 20% distinct.
+      - left out: anything else (too many short distinct values for a category, too short for text).
+    Queue names in the label column that sound like safety or security (safety, security, hazard, incident,
+    urgent, emergency, self_harm) get a policy that never auto-routes and asks for 0.99 precision; their
+    reasons are keyed `queues.<name>`.
+    """
+    source = Path(path).name
+    columns, rows = read_raw_sample(path, sample_rows)
+    frame = pd.DataFrame({c: [_cell(r.get(c)) for r in rows] for c in columns}, dtype=object)
+    n = len(frame)
+    reasons: dict[str, str] = {}
+
+    label_col, reasons[label_col] = _find_label(columns, label, source)
+
+    unique_cols = [
+        c for c in columns if c != label_col and (frame[c] != "").all() and frame[c].nunique() == n
+    ]
+    named = [c for c in unique_cols if _looks_like_id_name(c)]
+    if named:
+        id_col = named[0]
+        reasons[id_col] = f"the item id: every value is distinct and the name {id_col!r} looks like an id"
+    elif unique_cols:
+        id_col = unique_cols[0]
+        reasons[id_col] = "the item id: the first column with a distinct value on every row"
+    else:
+        raise IngestError(
+            f"{source}: no column has a distinct, non-empty value on every row to serve as the item id"
+        )
+
+    time_col: str | None = None
+    specs: list[FieldSpec] = []
+    for c in columns:
+        if c in (label_col, id_col):
+            continue
+        values = frame[c]
+        filled = values[values != ""]
+        if filled.empty:
+            reasons[c] = "left out: empty in the sample"
+            continue
+        distinct = int(filled.nunique())
+        unique_share = distinct / len(filled)
+        numeric_share = float(filled.map(_is_number).mean())
+        time_hint = any(w in TIME_WORDS for w in _words(c)) or c.lower().endswith("_at")
+        if time_col is None and (time_hint or numeric_share < 0.95):
+            dt_share = _datetime_share(filled)
+            if (time_hint and dt_share >= 0.5) or (numeric_share < 0.95 and dt_share >= 0.95):
+                time_col = c
+                why = "the name suggests a time and " if time_hint else ""
+                reasons[c] = f"the arrival time: {why}{_pct(dt_share)} of values parse as dates"
+                continue
+        if numeric_share >= 0.95:
+            if distinct == 1:
+                reasons[c] = "left out: one value only in the sample"
+                continue
+            specs.append(FieldSpec(name=c, role=FieldRole.NUMBER))
+            extra = "" if numeric_share == 1 else "; rows holding text here will be rejected on import"
+            reasons[c] = f"number: {_pct(numeric_share)} of non-empty values are numbers{extra}"
+            continue
+        if distinct == 1:
+            reasons[c] = "left out: one value only in the sample"
+            continue
+        mean_len = float(filled.str.len().mean())
+        spaced = float(filled.str.contains(r"\s", regex=True).mean())
+        if distinct == len(filled) and mean_len < TEXT_MIN_MEAN_CHARS and spaced < 0.1:
+            reasons[c] = "left out: every value is distinct, short and without spaces (a code, not the id)"
+            continue
+        if mean_len >= TEXT_MIN_MEAN_CHARS or (unique_share > 0.5 and distinct > 30):
+            if mean_len >= LONG_TEXT_CHARS:
+                specs.append(FieldSpec(name=c, role=FieldRole.TEXT, weight=1.0))
+                reasons[c] = f"long text (mean {mean_len:.0f} characters), weight 1.0"
+            else:
+                specs.append(FieldSpec(name=c, role=FieldRole.TEXT, weight=SHORT_TEXT_WEIGHT))
+                reasons[c] = (
+                    f"short text (mean {mean_len:.0f} characters, {_pct(unique_share)} distinct), "
+                    f"weight {SHORT_TEXT_WEIGHT}"
+                )
+            continue
+        if distinct <= MAX_CATEGORIES or unique_share <= 0.2:
+            specs.append(FieldSpec(name=c, role=FieldRole.CATEGORY))
+            reasons[c] = f"category: {distinct} distinct values"
+            continue
+        reasons[c] = (
+            f"left out: {distinct} distinct short values (mean {mean_len:.0f} characters), "
+            "too many for a category and too short for text"
+        )
+
+    if not specs:
+        raise IngestError(
+            f"{source}: no column could serve as a text, category or number field; "
+            + "; ".join(f"{c}: {r}" for c, r in reasons.items())
+        )
+
+    queues: dict[str, QueuePolicy] = {}
+    for q in sorted({v for v in frame[label_col] if v}):
+        norm = re.sub(r"[^a-z0-9]+", "_", q.lower())
+        hit = next((w for w in SAFETY_WORDS if w in norm), None)
+        if hit:
+            queues[q] = QueuePolicy(target_precision=SAFETY_PRECISION, never_auto=True)
+            reasons[f"queues.{q}"] = (
+                f"queue {q!r} sounds like {hit.replace('_', '-')}: never auto-routed, "
+                f"target precision {SAFETY_PRECISION}"
+            )
+
+    schema = Schema(fields=tuple(specs), id=id_col, label=label_col, time=time_col)
+    return Config(schema=schema, queues=queues), reasons
