@@ -1,0 +1,34 @@
+"""SQLite store: items, label history, the corrections journal, decisions and model versions."""
+
+from triage.store.db import (
+    Batch,
+    Correction,
+    Decision,
+    ImportSummary,
+    LabelConflict,
+    ModelVersion,
+    Store,
+    StoreError,
+    UnknownCorrectionError,
+    UnknownItemError,
+    UnknownVersionError,
+    utc_now,
+)
+from triage.store.migrations import LATEST_VERSION, MIGRATIONS
+
+__all__ = [
+    "LATEST_VERSION",
+    "MIGRATIONS",
+    "Batch",
+    "Correction",
+    "Decision",
+    "ImportSummary",
+    "LabelConflict",
+    "ModelVersion",
+    "Store",
+    "StoreError",
+    "UnknownCorrectionError",
+    "UnknownItemError",
+    "UnknownVersionError",
+    "utc_now",
+]
