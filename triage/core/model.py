@@ -107,6 +107,7 @@ class NaiveBayes:
             and hasattr(self, "A_")
             and self.A_.shape == c.token_count_.shape
             and self.spec.text_model in ("multinomial", "bernoulli")
+            and c.n_terms > 0
         )
         if partial:
             self._refresh_text_partial(np.asarray(columns, dtype=np.int64), list(queues or range(c.n_queues)))
@@ -159,6 +160,8 @@ class NaiveBayes:
                 else:
                     self.A_, self.B_ = log_comp, -log_s
                     self.scale_ = 1.0 / (log_comp.sum(axis=1) - V * log_s)
+        if V == 0:  # no vocabulary (e.g. a schema without text fields): the text part is 0 for every queue
+            self.A_, self.B_, self.C_, self.scale_ = np.zeros((Q, 0)), np.zeros(Q), np.zeros(Q), np.ones(Q)
         for name in ("A_", "B_", "C_", "scale_"):
             arr = getattr(self, name)
             arr[np.isnan(arr)] = -np.inf
