@@ -53,6 +53,11 @@ class Config:
     queues: dict[str, QueuePolicy] = field(default_factory=dict)
     target_precision: float = DEFAULT_TARGET_PRECISION
     max_text_chars: int = 20_000
+    # hold any item that gives a never-auto queue at least this probability, whatever its top queue
+    watch_probability: float = 0.10
+
+    def never_auto(self) -> frozenset[str]:
+        return frozenset(q for q, p in self.queues.items() if p.never_auto)
 
     def policy(self, queue: str) -> QueuePolicy:
         """The queue's routing rules; queues not named in the file get the defaults."""
@@ -114,6 +119,9 @@ def config_from_dict(data: dict[str, Any], path: Path | str = "triage.toml") -> 
     target = float(routing.get("target_precision", DEFAULT_TARGET_PRECISION))
     if not 0 < target <= 1:
         raise _fail(path, "routing.target_precision", "must be in (0, 1]")
+    watch = float(routing.get("watch_probability", 0.10))
+    if not 0 < watch <= 1:
+        raise _fail(path, "routing.watch_probability", "must be in (0, 1]")
     queues: dict[str, QueuePolicy] = {}
     for qname, q in data.get("queues", {}).items():
         if not qname.strip():
@@ -130,6 +138,7 @@ def config_from_dict(data: dict[str, Any], path: Path | str = "triage.toml") -> 
         queues=queues,
         target_precision=target,
         max_text_chars=int(dat.get("max_text_chars", 20_000)),
+        watch_probability=watch,
     )
 
 
@@ -179,7 +188,9 @@ def dump_config(cfg: Config, comments: dict[str, str] | None = None) -> str:
     out.append("[model]")
     for k in ModelSettings.__dataclass_fields__:
         out.append(f"{k} = {_toml_value(getattr(cfg.model, k))}")
-    out += ["", "[routing]", f"target_precision = {cfg.target_precision!r}", ""]
+    out += ["", "[routing]", f"target_precision = {cfg.target_precision!r}",
+            "# items giving a never-auto queue at least this probability are held for a person",
+            f"watch_probability = {cfg.watch_probability!r}", ""]
     for qname, q in cfg.queues.items():
         out.append(f"[queues.{_toml_key(qname)}]")
         out.append(f"target_precision = {q.target_precision!r}")

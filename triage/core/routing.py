@@ -1,0 +1,94 @@
+"""The routing policy: turn calibrated confidences into "route to queue" or "hold for review".
+
+An item is auto-routed to its top queue only when the calibrated confidence reaches that queue's cutoff.
+Queues marked never-auto (a safety queue, a security-incident queue) are never auto-routed: every item whose top
+queue is one of them is held for a human, and so is any item that gives such a queue a probability of at least
+`watch_probability`, however confident the model is about another queue. A wrong "billing" on a ticket that
+mentions smoke costs far more than a second look.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from triage.core.model import log_posterior
+
+HELD_BELOW_CUTOFF = "below cutoff"
+HELD_NEVER_AUTO = "never auto-routed: a person reviews every item here"
+HELD_NO_CUTOFF = "no cutoff meets this queue's target precision yet"
+HELD_WATCH = "may belong to a never-auto queue"
+
+
+@dataclass(frozen=True)
+class RoutingPolicy:
+    """Cutoffs per queue (None = no cutoff reaches the target, hold everything), plus calibration temperature."""
+
+    cutoffs: Mapping[str, float | None]
+    never_auto: frozenset[str] = field(default_factory=frozenset)
+    watch_probability: float = 0.10
+    temperature: float = 1.0
+    default_cutoff: float | None = None  # for a queue with no solved cutoff (e.g. added by a correction)
+
+    def cutoff(self, queue: str) -> float | None:
+        return self.cutoffs.get(queue, self.default_cutoff)
+
+    def calibrated(self, jll: np.ndarray) -> np.ndarray:
+        """Posterior probabilities with the temperature applied (T > 1 softens NB's over-confidence)."""
+        return np.exp(log_posterior(np.atleast_2d(jll) / self.temperature))
+
+    def to_dict(self) -> dict[str, object]:
+        return {"cutoffs": dict(self.cutoffs), "never_auto": sorted(self.never_auto),
+                "watch_probability": self.watch_probability, "temperature": self.temperature,
+                "default_cutoff": self.default_cutoff}
+
+    @classmethod
+    def from_dict(cls, d: Mapping[str, object]) -> RoutingPolicy:
+        return cls(cutoffs=dict(d.get("cutoffs", {})), never_auto=frozenset(d.get("never_auto", [])),
+                   watch_probability=float(d.get("watch_probability", 0.10)),
+                   temperature=float(d.get("temperature", 1.0)),
+                   default_cutoff=d.get("default_cutoff"))
+
+
+@dataclass(frozen=True)
+class Verdict:
+    """The routing part of a decision (the evidence is added by the caller)."""
+
+    suggested: str
+    confidence: float
+    runner_up: str | None
+    runner_up_confidence: float
+    queue: str | None  # None when held
+    held: bool
+    reason: str
+    top_index: int
+    runner_up_index: int
+
+
+def decide(probs: np.ndarray, queues: list[str], policy: RoutingPolicy) -> list[Verdict]:
+    """One verdict per row of calibrated probabilities."""
+    probs = np.atleast_2d(probs)
+    order = np.argsort(-probs, axis=1, kind="stable")
+    watch_idx = [i for i, q in enumerate(queues) if q in policy.never_auto]
+    out: list[Verdict] = []
+    for row, p in zip(order, probs, strict=True):
+        a = int(row[0])
+        b = int(row[1]) if len(row) > 1 else a
+        top, conf = queues[a], float(p[a])
+        cut = policy.cutoff(top)
+        watched = [queues[i] for i in watch_idx if i != a and p[i] >= policy.watch_probability]
+        if top in policy.never_auto:
+            held, reason = True, HELD_NEVER_AUTO
+        elif watched:
+            held, reason = True, f"{HELD_WATCH} ({', '.join(watched)})"
+        elif cut is None:
+            held, reason = True, HELD_NO_CUTOFF
+        elif conf < cut:
+            held, reason = True, f"{HELD_BELOW_CUTOFF} ({conf:.2f} < {cut:.2f})"
+        else:
+            held, reason = False, f"confidence {conf:.2f} >= cutoff {cut:.2f}"
+        out.append(Verdict(top, conf, queues[b] if b != a else None, float(p[b]) if b != a else 0.0,
+                           None if held else top, held, reason, a, b))
+    return out

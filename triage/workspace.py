@@ -1,0 +1,596 @@
+"""The workspace: the one application layer under the command line, the HTTP service and the terminal UI.
+
+A workspace is a folder with `triage.toml` (the config), `triage.db` (the SQLite store) and `models/` (one
+folder per trained model). It owns the active model and its routing policy; front ends call its methods and
+never touch SQLite or numpy themselves.
+
+Model versions: a `train` version has its own artifact folder. A `correction` version is its parent's artifact
+plus the ordered list of journaled corrections learned on top of it, replayed exactly on load; this keeps every
+version without writing megabytes per correction. Every `SNAPSHOT_EVERY` corrections a full artifact is written
+so loading stays fast.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import threading
+import time
+from collections.abc import Callable, Iterable, Sequence
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from triage.config import Config, ConfigError, dump_config, load_config
+from triage.core.calibrate import TemperatureScaler, expected_calibration_error, reliability_table
+from triage.core.encode import Encoder
+from triage.core.evidence import explain as explain_item
+from triage.core.metrics import Scorecard, population_stability_index, scorecard, solve_cutoff
+from triage.core.model import ModelSpec, NaiveBayes
+from triage.core.routing import RoutingPolicy, decide
+from triage.core.selection import fit_rows, out_of_fold_jll, quick_grid, select, subset
+from triage.core.tokens import Tokenizer
+from triage.ingest import IngestResult, read_items
+from triage.records import ItemRecord
+from triage.store import Correction, Decision, ModelVersion, Store
+from triage.store.artifacts import load_model, save_model
+
+CONFIG_NAME = "triage.toml"
+DB_NAME = "triage.db"
+MODELS_DIR = "models"
+SNAPSHOT_EVERY = 200
+HOLDOUT_SHARE = 0.2
+MIN_ITEMS = 20
+EVIDENCE_TERMS = 8
+
+Progress = Callable[[str, float], None]
+
+
+class WorkspaceError(Exception):
+    """A user-facing problem: the message says what is wrong and what to do."""
+
+
+class Cancelled(WorkspaceError):
+    """A long run was cancelled by the user; nothing was changed."""
+
+
+@dataclass
+class Measurement:
+    """An honest measurement of one model setting on the current labels."""
+
+    spec: ModelSpec
+    policy: RoutingPolicy
+    scorecard: Scorecard
+    calibration: dict[str, Any]
+    cutoffs: dict[str, dict[str, Any]]
+    split: dict[str, Any]
+
+
+@dataclass
+class TrainReport:
+    version: ModelVersion
+    measurement: Measurement
+    selection: list[dict[str, Any]]
+    n_items: int
+    seconds: float
+
+
+@dataclass
+class ImportReport:
+    result: IngestResult
+    added: int
+    unchanged: int
+    conflicts: list[Any]
+
+
+@dataclass
+class CorrectionReport:
+    correction: Correction
+    version: ModelVersion
+    before: str | None
+    after: str | None
+    decision: dict[str, Any] | None = None
+
+
+@dataclass
+class _Active:
+    """The active model with the routing policy and the item -> queue map it learned."""
+
+    version: ModelVersion
+    model: NaiveBayes
+    policy: RoutingPolicy
+    labels: dict[str, str]
+    base_artifact: str
+    corrections: list[int] = field(default_factory=list)
+
+
+def fingerprint(ids: Sequence[str], labels: Sequence[str], config: Config) -> str:
+    """A short hash of the training set (ids with their labels) and the schema."""
+    h = hashlib.sha256()
+    h.update(repr(config.schema).encode())
+    for i, lab in sorted(zip(ids, labels, strict=True)):
+        h.update(f"{i}\x1f{lab}\x1e".encode())
+    return h.hexdigest()[:16]
+
+
+def spec_from_config(config: Config, **overrides: Any) -> ModelSpec:
+    m = config.model
+    spec = ModelSpec(
+        text_model="multinomial" if m.text_model == "auto" else m.text_model,
+        alpha_text=1.0 if m.alpha_text == "auto" else float(m.alpha_text),
+        alpha_fields=float(m.alpha_fields), prior=m.prior, bigrams=bool(m.bigrams), min_count=int(m.min_count),
+        max_vocab=int(m.max_vocab) if m.max_vocab else None, max_token_chars=int(m.max_token_chars),
+    )
+    return replace(spec, **overrides)
+
+
+class Workspace:
+    """One workspace folder. Safe to share between threads: a lock serialises changes to the active model."""
+
+    def __init__(self, root: Path, config: Config, store: Store) -> None:
+        self.root = root
+        self.config = config
+        self.store = store
+        self._lock = threading.RLock()
+        self._active: _Active | None = None
+        self._load_active()
+        self._replay_pending()
+
+    # ----- opening ---------------------------------------------------------------------------------------
+    @classmethod
+    def open(cls, root: Path | str = ".") -> Workspace:
+        root = Path(root).resolve()
+        config = load_config(root / CONFIG_NAME)
+        return cls(root, config, Store.open(root / DB_NAME))
+
+    @staticmethod
+    def create(root: Path | str, config: Config, comments: dict[str, str] | None = None,
+               *, overwrite: bool = False) -> Path:
+        """Write `triage.toml` in a (new) workspace folder."""
+        root = Path(root)
+        root.mkdir(parents=True, exist_ok=True)
+        path = root / CONFIG_NAME
+        if path.exists() and not overwrite:
+            raise WorkspaceError(f"{path} already exists; edit it, or pass --force to replace it")
+        path.write_text(dump_config(config, comments), encoding="utf-8")
+        return path
+
+    def close(self) -> None:
+        self.store.close()
+
+    def __enter__(self) -> Workspace:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    # ----- the active model ------------------------------------------------------------------------------
+    @property
+    def model(self) -> NaiveBayes | None:
+        return self._active.model if self._active else None
+
+    @property
+    def policy(self) -> RoutingPolicy | None:
+        return self._active.policy if self._active else None
+
+    @property
+    def active_version(self) -> ModelVersion | None:
+        return self._active.version if self._active else None
+
+    def _require_model(self) -> _Active:
+        if self._active is None:
+            raise WorkspaceError(f"{self.root}: no model yet; run `triage train` first")
+        return self._active
+
+    def _load_active(self) -> None:
+        mv = self.store.active_model()
+        self._active = self._load_version(mv) if mv else None
+
+    def _load_version(self, mv: ModelVersion) -> _Active:
+        base = mv.config.get("base_artifact", mv.artifact)
+        model, manifest = load_model(self.root / base)
+        extra = manifest.get("extra", {})
+        labels = dict(zip(extra.get("trained_ids", []), extra.get("trained_labels", []), strict=True))
+        policy = RoutingPolicy.from_dict(mv.config.get("policy", extra.get("policy", {})))
+        active = _Active(mv, model, policy, labels, base, [])
+        for cid in mv.config.get("corrections", []):
+            self._learn_correction(active, self.store.get_correction(cid))
+        return active
+
+    def refresh_if_changed(self) -> bool:
+        """Pick up a model version activated by another process (training, rollback); True if it changed."""
+        mv = self.store.active_model()
+        current = self._active.version.version if self._active else None
+        if (mv.version if mv else None) == current:
+            return False
+        with self._lock:
+            self._active = self._load_version(mv) if mv else None
+        return True
+
+    # ----- items -----------------------------------------------------------------------------------------
+    def import_file(self, path: Path | str, *, progress: bool = False) -> ImportReport:
+        """Read, validate and store a labelled export; bad rows go to the rejects file, good rows are kept."""
+        result = read_items(path, self.config.schema, require_label=True,
+                            max_text_chars=self.config.max_text_chars, progress=progress)
+        summary = self.store.import_items(result.records, source=str(path))
+        return ImportReport(result, summary.added, summary.unchanged, summary.conflicts)
+
+    # ----- measuring and training ------------------------------------------------------------------------
+    def _labelled(self) -> list[ItemRecord]:
+        recs = self.store.labelled_items()
+        queues = {r.label for r in recs}
+        if len(recs) < MIN_ITEMS or len(queues) < 2:
+            raise WorkspaceError(
+                f"{self.root}: {len(recs)} labelled items in {len(queues)} queue(s); training needs at least "
+                f"{MIN_ITEMS} items in 2 or more queues (run `triage import FILE`)"
+            )
+        return recs
+
+    def _encoder(self, spec: ModelSpec, items: Sequence[dict[str, Any]]) -> Encoder:
+        tok = Tokenizer(bigrams=spec.bigrams, max_token_chars=spec.max_token_chars)
+        return Encoder(self.config.schema, tok, min_count=spec.min_count, max_vocab=spec.max_vocab).fit(items)
+
+    def measure(self, spec: ModelSpec, recs: Sequence[ItemRecord] | None = None,
+                progress: Progress | None = None) -> Measurement:
+        """Calibrate and choose cutoffs on out-of-fold scores of the older items, then score the newest
+        `HOLDOUT_SHARE` of items (by arrival time) with a model that never saw them: routing's real use."""
+        say = progress or (lambda _s, _f: None)
+        recs = list(recs) if recs is not None else self._labelled()
+        n_hold = max(1, int(round(len(recs) * HOLDOUT_SHARE)))
+        older, newer = recs[: len(recs) - n_hold], recs[len(recs) - n_hold:]
+        items = [r.fields for r in older]
+        labels = [r.label or "" for r in older]
+        say("tokenising", 0.1)
+        enc = self._encoder(spec, items)
+        batch = enc.transform(items)
+        say("calibrating on out-of-fold scores", 0.3)
+        oof, queues = out_of_fold_jll(enc, batch, labels, spec, folds=5)
+        qi = {q: i for i, q in enumerate(queues)}
+        y = np.array([qi[lab] for lab in labels])
+        scaler = TemperatureScaler().fit(oof, y)
+        raw = np.exp(oof - oof.max(axis=1, keepdims=True))
+        raw /= raw.sum(axis=1, keepdims=True)
+        cal = scaler.transform(oof)
+        top = cal.argmax(axis=1)
+        conf = cal[np.arange(len(y)), top]
+        correct = top == y
+        raw_conf = raw[np.arange(len(y)), raw.argmax(axis=1)]
+        calibration = {
+            "temperature": scaler.temperature,
+            "ece_before": expected_calibration_error(raw_conf, raw.argmax(axis=1) == y),
+            "ece_after": expected_calibration_error(conf, correct),
+            "reliability": [vars(b) if hasattr(b, "__dict__") else b._asdict()
+                            for b in reliability_table(conf, correct)],
+        }
+        say("choosing cutoffs", 0.5)
+        never = self.config.never_auto()
+        cutoffs: dict[str, float | None] = {}
+        cutoff_info: dict[str, dict[str, Any]] = {}
+        for q, i in qi.items():
+            policy_q = self.config.policy(q)
+            mine = top == i
+            if policy_q.cutoff is not None:
+                cutoffs[q] = policy_q.cutoff
+                cutoff_info[q] = {"cutoff": policy_q.cutoff, "fixed": True, "target": policy_q.target_precision}
+                continue
+            choice = solve_cutoff(conf[mine], correct[mine], policy_q.target_precision)
+            cutoffs[q] = None if q in never else choice.cutoff
+            cutoff_info[q] = {"cutoff": choice.cutoff, "target": choice.target, "precision": choice.precision,
+                              "lower_bound": choice.lower_bound, "coverage": choice.coverage,
+                              "routed": choice.routed, "never_auto": q in never}
+        policy = RoutingPolicy(cutoffs=cutoffs, never_auto=never, watch_probability=self.config.watch_probability,
+                               temperature=scaler.temperature)
+        say("scoring the newest items", 0.7)
+        model = fit_rows(enc, batch, labels, np.arange(len(labels)), spec, queues)
+        hold_batch = enc.transform([r.fields for r in newer], allow_missing=True)
+        probs = policy.calibrated(model.joint_log_likelihood(hold_batch))
+        verdicts = decide(probs, model.queues, policy)
+        all_queues = sorted(set(queues) | {r.label for r in newer if r.label})
+        card = scorecard([r.label for r in newer], [v.suggested for v in verdicts],
+                         np.array([v.confidence for v in verdicts]), all_queues, cutoffs, never_auto=never,
+                         targets={q: self.config.policy(q).target_precision for q in all_queues})
+        split = {"kind": "time", "train_items": len(older), "test_items": len(newer),
+                 "test_from": newer[0].arrived_at, "test_to": newer[-1].arrived_at}
+        return Measurement(spec, policy, card, calibration, cutoff_info, split)
+
+    def train(self, *, progress: Progress | None = None, cancel: Callable[[], bool] | None = None,
+              note: str = "") -> TrainReport:
+        """Choose settings (unless the config pins them), measure, fit on every labelled item, activate."""
+        t0 = time.perf_counter()
+        say = progress or (lambda _s, _f: None)
+
+        def check() -> None:
+            if cancel is not None and cancel():
+                raise Cancelled("training cancelled; the active model is unchanged")
+
+        say("reading labelled items", 0.0)
+        recs = self._labelled()
+        base = spec_from_config(self.config)
+        selection: list[dict[str, Any]] = []
+        m = self.config.model
+        if m.text_model == "auto" or m.alpha_text == "auto":
+            specs = [s for s in quick_grid(base)
+                     if (m.text_model == "auto" or s.text_model == m.text_model)
+                     and (m.alpha_text == "auto" or s.alpha_text == float(m.alpha_text))]
+            n_hold = max(1, int(round(len(recs) * HOLDOUT_SHARE)))
+            older = recs[: len(recs) - n_hold]
+            items = [r.fields for r in older]
+            enc = self._encoder(base, items)
+            batch = enc.transform(items)
+            check()
+            say(f"comparing {len(specs)} settings by cross-validation", 0.05)
+            best, scores = select(enc, batch, [r.label or "" for r in older], specs, folds=3)
+            selection = [s.to_dict() for s in scores]
+            base = best.spec
+        check()
+        measurement = self.measure(base, recs, progress=lambda s, f: say(s, 0.1 + 0.6 * f))
+        check()
+        say("fitting the final model on every item", 0.8)
+        items = [r.fields for r in recs]
+        labels = [r.label or "" for r in recs]
+        model = NaiveBayes.fit(self.config.schema, items, labels, base)
+        check()
+        say("saving", 0.95)
+        version = self._save_trained(model, recs, measurement, selection, note or "trained", kind="train")
+        say("done", 1.0)
+        return TrainReport(version, measurement, selection, len(recs), time.perf_counter() - t0)
+
+    def _save_trained(self, model: NaiveBayes, recs: Sequence[ItemRecord], meas: Measurement,
+                      selection: list[dict[str, Any]], note: str, kind: str) -> ModelVersion:
+        ids = [r.item_id for r in recs]
+        labels = [r.label or "" for r in recs]
+        fp = fingerprint(ids, labels, self.config)
+        with self._lock:
+            parent = self.active_version.version if self.active_version else None
+            name = f"{MODELS_DIR}/m{int(time.time() * 1000):x}-{fp[:8]}"
+            extra = {"policy": meas.policy.to_dict(), "trained_ids": ids, "trained_labels": labels,
+                     "calibration": meas.calibration, "cutoffs": meas.cutoffs, "selection": selection}
+            save_model(model, self.root / name, fingerprint=fp, extra=extra)
+            config = {"spec": meas.spec.to_dict(), "policy": meas.policy.to_dict(), "base_artifact": name,
+                      "corrections": [], "split": meas.split, "calibration": {
+                          k: v for k, v in meas.calibration.items() if k != "reliability"}}
+            mv = self.store.add_model_version(parent, kind, config, fp, name, scorecard=meas.scorecard.to_dict(),
+                                              note=note)
+            self._active = _Active(mv, model, meas.policy, dict(zip(ids, labels, strict=True)), name, [])
+        return mv
+
+    def evaluate(self, progress: Progress | None = None) -> Measurement:
+        """The scorecard of the active model's settings on the current labels (corrections included)."""
+        active = self._require_model()
+        return self.measure(active.model.spec, progress=progress)
+
+    # ----- routing ---------------------------------------------------------------------------------------
+    def _decision(self, active: _Active, rec: ItemRecord, probs: np.ndarray, verdict: Any,
+                  evidence_terms: int = EVIDENCE_TERMS) -> dict[str, Any]:
+        enc = active.model.encoder.encode(rec.fields, allow_missing=True)
+        ev = explain_item(active.model, enc, verdict.top_index, verdict.runner_up_index) \
+            if verdict.runner_up is not None else None
+        terms = ev.strongest(evidence_terms) if ev else []
+        return {
+            "id": rec.item_id,
+            "queue": verdict.queue,
+            "suggested": verdict.suggested,
+            "confidence": round(verdict.confidence, 6),
+            "held": verdict.held,
+            "reason": verdict.reason,
+            "runner_up": verdict.runner_up,
+            "runner_up_confidence": round(verdict.runner_up_confidence, 6),
+            "needs_person": verdict.suggested in active.policy.never_auto or verdict.held,
+            "evidence": [{"feature": t.feature, "weight": round(t.weight, 4), "kind": t.kind} for t in terms],
+            "unseen_words": list(enc.unknown_tokens[:20]),
+            "model_version": active.version.version,
+        }
+
+    def decide_records(self, records: Sequence[ItemRecord]) -> list[dict[str, Any]]:
+        """Decisions for items, without storing anything (a pure read of the active model)."""
+        with self._lock:
+            active = self._require_model()
+            if not records:
+                return []
+            batch = active.model.encoder.transform([r.fields for r in records], allow_missing=True)
+            probs = active.policy.calibrated(active.model.joint_log_likelihood(batch))
+            verdicts = decide(probs, active.model.queues, active.policy)
+            return [self._decision(active, r, p, v) for r, p, v in zip(records, probs, verdicts, strict=True)]
+
+    def route_records(self, records: Sequence[ItemRecord], source: str) -> tuple[list[dict[str, Any]], int]:
+        """Decide, store the items (so they can be corrected later) and the decisions; returns (decisions, batch)."""
+        decisions = self.decide_records(records)
+        active = self._require_model()
+        self.store.import_items([ItemRecord(r.item_id, r.fields, None, r.arrived_at) for r in records],
+                                source=source)
+        summary = self.batch_summary(records, decisions)
+        rows = [Decision(item_id=d["id"], model_version=d["model_version"], queue=d["queue"],
+                         suggested=d["suggested"], confidence=d["confidence"], held=d["held"],
+                         runner_up=d["runner_up"], evidence=d["evidence"]) for d in decisions]
+        batch_id = self.store.record_batch(source, rows, summary)
+        del active
+        return decisions, batch_id
+
+    def route_file(self, path: Path | str) -> tuple[list[dict[str, Any]], IngestResult, int]:
+        result = read_items(path, self.config.schema, require_label=False,
+                            max_text_chars=self.config.max_text_chars)
+        decisions, batch_id = self.route_records(result.records, source=str(path))
+        return decisions, result, batch_id
+
+    def batch_summary(self, records: Sequence[ItemRecord], decisions: Sequence[dict[str, Any]]) -> dict[str, Any]:
+        """Counts per queue and drift figures: unseen-word share and the shift of the predicted queue mix (PSI)."""
+        active = self._require_model()
+        n = len(decisions)
+        routed = sum(1 for d in decisions if not d["held"])
+        per_queue: dict[str, int] = {}
+        for d in decisions:
+            per_queue[d["suggested"]] = per_queue.get(d["suggested"], 0) + 1
+        unseen = total = 0
+        for r in records:
+            acc, unknown = active.model.encoder.token_counts(r.fields, allow_missing=True)
+            unseen += len(unknown)
+            total += len(unknown) + len(acc)
+        queues = active.model.queues
+        expected = active.model.counts.class_count_
+        actual = np.array([per_queue.get(q, 0) for q in queues], dtype=float)
+        psi = population_stability_index(expected, actual) if n else 0.0
+        return {"n": n, "routed": routed, "held": n - routed, "coverage": routed / n if n else 0.0,
+                "per_queue": per_queue, "unseen_word_share": unseen / total if total else 0.0,
+                "queue_mix_psi": psi, "drift_flag": bool(psi > 0.25)}
+
+    # ----- explaining ------------------------------------------------------------------------------------
+    def explain(self, item_id: str, n: int = 10) -> dict[str, Any]:
+        """The whole evidence behind the active model's decision on one stored item."""
+        with self._lock:
+            active = self._require_model()
+            rec = self.store.get_item(item_id)
+            if rec is None:
+                raise WorkspaceError(f"{self.store.path}: no item with id {item_id!r}")
+            enc = active.model.encoder.encode(rec.fields, allow_missing=True)
+            jll = active.model.joint_log_likelihood_one(enc)
+            probs = active.policy.calibrated(jll)
+            verdict = decide(probs, active.model.queues, active.policy)[0]
+            ev = explain_item(active.model, enc, verdict.top_index, verdict.runner_up_index)
+        return {
+            "id": item_id, "label": rec.label, "fields": rec.fields, "queue": verdict.queue,
+            "suggested": verdict.suggested, "confidence": verdict.confidence, "held": verdict.held,
+            "reason": verdict.reason, "runner_up": verdict.runner_up,
+            "runner_up_confidence": verdict.runner_up_confidence, "log_odds_gap": ev.gap,
+            "for": [t.to_dict() for t in ev.for_top(n)], "against": [t.to_dict() for t in ev.against_top(n)],
+            "terms_total": ev.total(), "n_terms": len(ev.terms), "unseen_words": list(enc.unknown_tokens),
+            "temperature": active.policy.temperature, "model_version": active.version.version,
+        }
+
+    # ----- corrections -----------------------------------------------------------------------------------
+    def _learn_correction(self, active: _Active, c: Correction) -> None:
+        """Apply one journaled correction to the in-memory model, exactly and idempotently."""
+        rec = self.store.get_item(c.item_id)
+        if rec is None:
+            raise WorkspaceError(f"correction {c.id}: item {c.item_id!r} is not in the store")
+        old = active.labels.get(c.item_id)
+        new = c.to_queue
+        if old == new:
+            pass
+        elif old is None:
+            active.model.learn(rec.fields, new)
+        elif new is None:
+            active.model.forget(rec.fields, old)
+        else:
+            active.model.relabel(rec.fields, old, new)
+        if new is None:
+            active.labels.pop(c.item_id, None)
+        else:
+            active.labels[c.item_id] = new
+        active.corrections.append(c.id)
+
+    def _commit_correction(self, c: Correction) -> ModelVersion:
+        active = self._require_model()
+        parent = active.version
+        self._learn_correction(active, c)
+        config = dict(parent.config)
+        config["corrections"] = list(active.corrections)
+        config["base_artifact"] = active.base_artifact
+        with self.store.transaction():
+            mv = self.store.add_model_version(parent.version, "correction", config, parent.fingerprint,
+                                              active.base_artifact, scorecard=parent.scorecard,
+                                              note=f"correction {c.id}: {c.item_id} -> {c.to_queue}")
+            self.store.apply_correction(c.id, mv.version)
+        active.version = mv
+        if len(active.corrections) >= SNAPSHOT_EVERY:
+            self._snapshot(active)
+        return active.version
+
+    def _snapshot(self, active: _Active) -> None:
+        """Write the corrected model as a full artifact so loading does not replay a long journal."""
+        fp = active.version.fingerprint
+        name = f"{MODELS_DIR}/m{int(time.time() * 1000):x}-{fp[:8]}-s"
+        ids, labels = list(active.labels), list(active.labels.values())
+        save_model(active.model, self.root / name, fingerprint=fp,
+                   extra={"policy": active.policy.to_dict(), "trained_ids": ids, "trained_labels": labels})
+        config = dict(active.version.config)
+        config.update({"corrections": [], "base_artifact": name})
+        mv = self.store.add_model_version(active.version.version, "correction", config, fp, name,
+                                          scorecard=active.version.scorecard, note="snapshot of corrections")
+        active.version, active.base_artifact, active.corrections = mv, name, []
+
+    def _replay_pending(self) -> None:
+        """Finish corrections journaled before a crash: they are learned now, none is lost or doubled."""
+        pending = self.store.pending_corrections()
+        if not pending:
+            return
+        if self._active is None:
+            return  # no model: they are applied to the labels at the next training
+        with self._lock:
+            for c in pending:
+                self._commit_correction(c)
+
+    def correct(self, item_id: str, queue: str, by: str = "operator") -> CorrectionReport:
+        """Journal a correction (durable first), learn it exactly, and activate the corrected model."""
+        queue = queue.strip()
+        if not queue:
+            raise WorkspaceError("the queue to correct to is empty")
+        with self._lock:
+            active = self._require_model()
+            rec = self.store.get_item(item_id)
+            if rec is None:
+                raise WorkspaceError(f"{self.store.path}: no item with id {item_id!r}")
+            known = set(active.model.queues) | set(self.store.queue_counts())
+            if queue not in known and not queue.replace("_", "").replace("-", "").isalnum():
+                raise WorkspaceError(f"queue {queue!r}: use letters, digits, '_' or '-' for a new queue")
+            c = self.store.journal_correction(item_id, queue, by, active.version.version)
+            before = rec.label
+            mv = self._commit_correction(c)
+            decision = self.decide_records([rec])[0]
+        return CorrectionReport(self.store.get_correction(c.id), mv, before, queue, decision)
+
+    def undo(self, by: str = "operator") -> CorrectionReport:
+        """Reverse the newest correction that has not been undone (journaled and learned like any correction)."""
+        with self._lock:
+            active = self._require_model()
+            last = self.store.last_undoable_correction()
+            if last is None:
+                raise WorkspaceError("there is no correction to undo")
+            c = self.store.journal_correction(last.item_id, last.from_queue, by, active.version.version,
+                                              undo_of=last.id)
+            mv = self._commit_correction(c)
+        return CorrectionReport(self.store.get_correction(c.id), mv, last.to_queue, last.from_queue)
+
+    # ----- versions --------------------------------------------------------------------------------------
+    def models(self) -> list[ModelVersion]:
+        return self.store.model_versions()
+
+    def activate(self, version: int) -> ModelVersion:
+        """Roll back (or forward) to a stored version; it is loaded and checked before it is activated."""
+        with self._lock:
+            mv = self.store.get_model_version(version)
+            loaded = self._load_version(mv)
+            mv = self.store.activate_model(version)
+            loaded.version = mv
+            self._active = loaded
+        return mv
+
+    def overview(self) -> dict[str, Any]:
+        """Figures for a dashboard: items, queues, the active version and its scorecard summary, drift."""
+        active = self._active
+        since = 0
+        if active is not None:
+            since = len(active.corrections)
+        card = active.version.scorecard if active else None
+        batch = self.store.latest_batch()
+        return {
+            "workspace": str(self.root), "items": self.store.count_items(),
+            "labelled": self.store.count_items(labelled=True), "queues": self.store.queue_counts(),
+            "active_version": active.version.version if active else None,
+            "text_model": active.model.spec.text_model if active else None,
+            "scorecard": _summary(card) if card else None,
+            "corrections_since_training": since,
+            "never_auto": sorted(self.config.never_auto()),
+            "latest_batch": {"id": batch.id, "source": batch.source, **batch.summary} if batch else None,
+        }
+
+
+def _summary(card: dict[str, Any]) -> dict[str, Any]:
+    return {k: card.get(k) for k in ("n", "accuracy", "macro_f1", "coverage", "held_share", "auto_precision")}
+
+
+def records_from_dicts(rows: Iterable[dict[str, Any]]) -> list[ItemRecord]:  # pragma: no cover - helper for callers
+    return [ItemRecord(str(r["id"]), dict(r.get("fields", {})), r.get("label"), r.get("arrived_at")) for r in rows]
+
+
+__all__ = ["Workspace", "WorkspaceError", "Cancelled", "ConfigError", "Measurement", "TrainReport"]
