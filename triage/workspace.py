@@ -29,7 +29,7 @@ from triage.core.evidence import explain as explain_item
 from triage.core.metrics import Scorecard, population_stability_index, scorecard, solve_cutoff
 from triage.core.model import ModelSpec, NaiveBayes
 from triage.core.routing import RoutingPolicy, decide
-from triage.core.selection import fit_rows, out_of_fold_jll, quick_grid, select, subset
+from triage.core.selection import fit_rows, out_of_fold_jll, quick_grid, select
 from triage.core.tokens import Tokenizer
 from triage.ingest import IngestResult, read_items
 from triage.records import ItemRecord
@@ -589,7 +589,8 @@ def _summary(card: dict[str, Any]) -> dict[str, Any]:
     return {k: card.get(k) for k in ("n", "accuracy", "macro_f1", "coverage", "held_share", "auto_precision")}
 
 
-def records_from_dicts(rows: Iterable[dict[str, Any]]) -> list[ItemRecord]:  # pragma: no cover - helper for callers
+def records_from_dicts(rows: Iterable[dict[str, Any]]) -> list[ItemRecord]:
+    """Records from plain dicts {id, fields, label, arrived_at} (the shape the service and tests use)."""
     return [ItemRecord(str(r["id"]), dict(r.get("fields", {})), r.get("label"), r.get("arrived_at")) for r in rows]
 
 
