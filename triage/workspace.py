@@ -28,7 +28,7 @@ from triage.core.encode import Encoder
 from triage.core.evidence import explain as explain_item
 from triage.core.metrics import Scorecard, population_stability_index, scorecard, solve_cutoff
 from triage.core.model import ModelSpec, NaiveBayes
-from triage.core.routing import RoutingPolicy, decide
+from triage.core.routing import HELD_WATCH, RoutingPolicy, decide
 from triage.core.selection import fit_rows, out_of_fold_jll, quick_grid, select
 from triage.core.tokens import Tokenizer
 from triage.ingest import IngestResult, read_items
@@ -376,7 +376,10 @@ class Workspace:
             "reason": verdict.reason,
             "runner_up": verdict.runner_up,
             "runner_up_confidence": round(verdict.runner_up_confidence, 6),
-            "needs_person": verdict.suggested in active.policy.never_auto or verdict.held,
+            "needs_person": verdict.held,
+            # never_auto: the top queue is one a person must always see; watch: such a queue has a real chance
+            "flag": "never_auto" if verdict.suggested in active.policy.never_auto
+            else ("watch" if verdict.reason.startswith(HELD_WATCH) else None),
             "evidence": [{"feature": t.feature, "weight": round(t.weight, 4), "kind": t.kind} for t in terms],
             "unseen_words": list(enc.unknown_tokens[:20]),
             "model_version": active.version.version,

@@ -3,10 +3,10 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
-from enum import Enum
+from enum import StrEnum
 
 
-class FieldRole(str, Enum):
+class FieldRole(StrEnum):
     """What a column is for. id, label and time are named in the schema itself, not as fields."""
 
     TEXT = "text"

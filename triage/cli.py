@@ -1,0 +1,498 @@
+"""The `triage` command: parses arguments, calls the workspace, prints with rich (or JSON with --json).
+
+Every user error ends with exit code 2 and one clear line on stderr; a traceback only with --debug.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+from collections.abc import Callable, Sequence
+from pathlib import Path
+from typing import Any
+
+from rich.console import Console
+from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
+from rich.table import Table
+
+from triage import __version__
+from triage.config import ConfigError
+from triage.core.counts import CountError
+from triage.core.encode import MissingFieldError
+from triage.ingest import IngestError, describe_reject
+from triage.store import StoreError
+from triage.store.artifacts import ArtifactError
+from triage.workspace import Workspace, WorkspaceError
+
+USER_ERRORS = (WorkspaceError, ConfigError, IngestError, StoreError, ArtifactError, CountError, MissingFieldError,
+               FileNotFoundError, PermissionError, IsADirectoryError)
+
+SAFETY_NOTE = ("Queues marked never_auto (such as a safety queue) are never auto-routed: a person reviews every item "
+               "predicted there, and every item that gives such a queue a real chance.")
+
+out = Console(highlight=False)
+err = Console(stderr=True, highlight=False)
+
+
+def _emit_json(data: Any) -> None:
+    sys.stdout.write(json.dumps(data, ensure_ascii=False, default=_jsonable) + "\n")
+
+
+def _jsonable(v: Any) -> Any:
+    if hasattr(v, "item"):
+        return v.item()
+    if hasattr(v, "__dict__"):
+        return vars(v)
+    return str(v)
+
+
+def _progress_cb(enabled: bool) -> tuple[Callable[[str, float], None], Callable[[], None]]:
+    """A rich progress bar on stderr fed by the workspace's (stage, fraction) callback."""
+    if not enabled:
+        return (lambda _s, _f: None), (lambda: None)
+    bar = Progress(TextColumn("{task.description:<44}"), BarColumn(), TextColumn("{task.percentage:>3.0f}%"),
+                   TimeElapsedColumn(), console=err, transient=True)
+    task = bar.add_task("starting", total=1.0)
+    bar.start()
+
+    def update(stage: str, frac: float) -> None:
+        bar.update(task, description=stage, completed=frac)
+
+    return update, bar.stop
+
+
+# ----- rendering ---------------------------------------------------------------------------------------------
+def _pct(x: float | None) -> str:
+    return "-" if x is None else f"{100 * x:.1f}%"
+
+
+def render_scorecard(card: dict[str, Any], console: Console = out) -> None:
+    """The confusion matrix and the per-queue table at the cutoffs."""
+    queues = card["queues"]
+    m = Table(title="Confusion matrix (rows: true queue, columns: suggested queue)", title_justify="left")
+    m.add_column("true \\ suggested")
+    for q in queues:
+        m.add_column(q[:12], justify="right")
+    for q, row in zip(queues, card["matrix"], strict=True):
+        total = sum(row) or 1
+        m.add_row(q, *[f"[bold]{v}[/]" if i == queues.index(q) else (f"{v}" if v / total < 0.05 else f"[yellow]{v}[/]")
+                       for i, v in enumerate(row)])
+    console.print(m)
+    t = Table(title="Per queue, at the cutoffs", title_justify="left")
+    for col in ("queue", "target", "cutoff", "precision", "recall", "F1", "support", "auto-routed", "held"):
+        t.add_column(col, justify="left" if col == "queue" else "right")
+    for q in card["per_queue"]:
+        cutoff = "never (person)" if q["never_auto"] else ("none met" if q["cutoff"] is None else f"{q['cutoff']:.3f}")
+        t.add_row(q["queue"], _pct(q["target"]), cutoff, _pct(q["precision"]) if q["routed"] else "-",
+                  _pct(q["recall"]), f"{q['f1']:.3f}", str(q["support"]), _pct(q["coverage"]), _pct(q["held_share"]))
+    console.print(t)
+    console.print(
+        f"items {card['n']}  accuracy (top queue) {_pct(card['accuracy'])}  macro-F1 {card['macro_f1']:.3f}  "
+        f"auto-routed {_pct(card['coverage'])} at precision {_pct(card['auto_precision'])}  "
+        f"held for review {_pct(card['held_share'])}"
+    )
+
+
+def render_decisions(decisions: Sequence[dict[str, Any]], console: Console = out, limit: int = 40) -> None:
+    t = Table(title=f"Decisions ({len(decisions)} items; first {min(limit, len(decisions))} shown)",
+              title_justify="left")
+    for col, width in (("id", 9), ("decision", 14), ("conf.", 5), ("runner-up", 10)):
+        t.add_column(col, overflow="ellipsis", no_wrap=True, min_width=width)
+    t.add_column("strongest evidence", ratio=1)
+    for d in decisions[:limit]:
+        decision = f"held ({d['suggested']}?)" if d["held"] else d["queue"]
+        if d.get("flag") == "never_auto":
+            decision = f"[b red]person: {d['suggested']}[/]"
+        elif d.get("flag") == "watch":
+            decision = f"[b red]held: check {d['reason'].split('(')[-1].rstrip(')')}[/]"
+        top = ", ".join(f"{e['feature']} {e['weight']:+.1f}" for e in d["evidence"][:2])
+        t.add_row(d["id"], decision, f"{d['confidence']:.2f}", d["runner_up"] or "-", top)
+    console.print(t)
+
+
+def render_explanation(x: dict[str, Any], console: Console = out) -> None:
+    state = "held for review" if x["held"] else f"routed to {x['queue']}"
+    console.print(f"[b]{x['id']}[/]: {state}. Top queue [b]{x['suggested']}[/] ({_pct(x['confidence'])}), "
+                  f"runner-up [b]{x['runner_up']}[/] ({_pct(x['runner_up_confidence'])}). {x['reason']}.")
+    if x.get("label"):
+        console.print(f"Its current label: {x['label']}.")
+    console.print(f"The evidence below adds up to the log-odds gap {x['log_odds_gap']:.3f} between the two queues "
+                  f"(sum of all {x['n_terms']} terms: {x['terms_total']:.3f}); confidences are calibrated with "
+                  f"temperature {x['temperature']:.2f}.")
+    for title, key in ((f"For {x['suggested']}", "for"), (f"For {x['runner_up']}", "against")):
+        t = Table(title=title, title_justify="left")
+        t.add_column("evidence")
+        t.add_column("weight", justify="right")
+        t.add_column("")
+        for e in x[key]:
+            bar = "█" * min(30, int(round(abs(e["weight"]) * 4)))
+            name = e["feature"] + (f" ×{e['count']:g}" if e["kind"] == "token" and e["count"] != 1 else "")
+            t.add_row(name, f"{e['weight']:+.3f}", f"[{'green' if e['weight'] > 0 else 'red'}]{bar}[/]")
+        console.print(t)
+    if x["unseen_words"]:
+        console.print("Words the model has never seen (no evidence either way): " + ", ".join(x["unseen_words"][:20]))
+
+
+def render_models(versions: Sequence[Any], console: Console = out) -> None:
+    t = Table(title="Model versions", title_justify="left")
+    for col in ("", "version", "kind", "parent", "created", "text model", "accuracy", "auto-routed", "note"):
+        t.add_column(col)
+    for v in versions:
+        card = v.scorecard or {}
+        spec = v.config.get("spec", {})
+        t.add_row("*" if v.active else "", str(v.version), v.kind, str(v.parent or "-"), v.created_at[:19],
+                  f"{spec.get('text_model', '?')} a={spec.get('alpha_text', '?')}", _pct(card.get("accuracy")),
+                  _pct(card.get("coverage")), v.note)
+    console.print(t)
+
+
+# ----- commands ----------------------------------------------------------------------------------------------
+def _ws(args: argparse.Namespace) -> Workspace:
+    return Workspace.open(args.workspace)
+
+
+def cmd_init(args: argparse.Namespace) -> int:
+    from triage.infer import infer_config
+
+    config, reasons = infer_config(args.source, label=args.label)
+    path = Workspace.create(args.workspace, config, comments=reasons, overwrite=args.force)
+    if args.json:
+        _emit_json({"config": str(path), "reasons": reasons})
+        return 0
+    out.print(f"Wrote [b]{path}[/]. What was inferred, and why:")
+    for name, why in reasons.items():
+        out.print(f"  {name}: {why}")
+    out.print(f"Review the roles, then: triage import {args.source} -w {args.workspace} && triage train "
+              f"-w {args.workspace}")
+    return 0
+
+
+def _report_import(rep: Any, as_json: bool) -> None:
+    r = rep.result
+    data = {"file": r.path, "rows_read": r.rows_read, "added": rep.added, "unchanged": rep.unchanged,
+            "rejected": len(r.rejects), "rejects_file": str(r.rejects_path) if r.rejects_path else None,
+            "conflicts": [vars(c) for c in rep.conflicts], "warnings": r.warnings}
+    if as_json:
+        _emit_json(data)
+        return
+    out.print(f"{r.path}: {r.rows_read} rows read, {rep.added} new items, {rep.unchanged} already stored, "
+              f"{len(r.rejects)} rejected, {len(rep.conflicts)} conflicts (stored labels kept).")
+    for w in r.warnings[:25]:
+        err.print(f"warning: {w}")
+    for c in rep.conflicts[:10]:
+        err.print(f"conflict: item {c.item_id}: stored {c.kind} {c.stored!r}, file says {c.incoming!r}; kept stored")
+    if r.rejects_path:
+        out.print(f"Rejected rows, with row numbers and reasons: {r.rejects_path}")
+
+
+def cmd_import(args: argparse.Namespace) -> int:
+    with _ws(args) as ws:
+        rep = ws.import_file(args.file, progress=not args.json)
+        _report_import(rep, args.json)
+    return 0
+
+
+def _train(ws: Workspace, as_json: bool) -> Any:
+    update, stop = _progress_cb(not as_json and err.is_terminal)
+    try:
+        rep = ws.train(progress=update)
+    finally:
+        stop()
+    return rep
+
+
+def cmd_train(args: argparse.Namespace) -> int:
+    with _ws(args) as ws:
+        rep = _train(ws, args.json)
+        meas = rep.measurement
+        data = {"version": rep.version.version, "items": rep.n_items, "seconds": round(rep.seconds, 2),
+                "spec": meas.spec.to_dict(), "selection": rep.selection, "cutoffs": meas.cutoffs,
+                "calibration": {k: v for k, v in meas.calibration.items() if k != "reliability"},
+                "scorecard": meas.scorecard.to_dict()}
+        if args.json:
+            _emit_json(data)
+            return 0
+        s = meas.spec
+        out.print(f"Trained model version [b]{rep.version.version}[/] on {rep.n_items} items in {rep.seconds:.1f} s: "
+                  f"{s.text_model} text (alpha {s.alpha_text}), fields alpha {s.alpha_fields}.")
+        if rep.selection:
+            out.print(f"Chosen by 3-fold cross-validation among {len(rep.selection)} settings (macro-F1).")
+        c = meas.calibration
+        out.print(f"Calibration: temperature {c['temperature']:.2f}; expected calibration error "
+                  f"{c['ece_before']:.3f} before, {c['ece_after']:.3f} after.")
+        sc = meas.scorecard
+        out.print(f"On the newest {meas.split['test_items']} items (not used to fit): accuracy {_pct(sc.accuracy)}, "
+                  f"auto-routed {_pct(sc.coverage)} at precision {_pct(sc.auto_precision)}. `triage evaluate` "
+                  "shows the full scorecard.")
+    return 0
+
+
+def cmd_evaluate(args: argparse.Namespace) -> int:
+    with _ws(args) as ws:
+        update, stop = _progress_cb(not args.json and err.is_terminal)
+        try:
+            meas = ws.evaluate(progress=update)
+        finally:
+            stop()
+        card = meas.scorecard.to_dict()
+        if args.json:
+            _emit_json({"split": meas.split, "scorecard": card, "cutoffs": meas.cutoffs,
+                        "calibration": meas.calibration})
+            return 0
+        sp = meas.split
+        out.print(f"Trained on the {sp['train_items']} oldest items, scored on the {sp['test_items']} newest "
+                  f"({sp['test_from']} to {sp['test_to']}).")
+        render_scorecard(card)
+        c = meas.calibration
+        out.print(f"Calibration: temperature {c['temperature']:.2f}, expected calibration error "
+                  f"{c['ece_before']:.3f} -> {c['ece_after']:.3f}.")
+        out.print(SAFETY_NOTE)
+    return 0
+
+
+def cmd_route(args: argparse.Namespace) -> int:
+    with _ws(args) as ws:
+        if args.follow:
+            return _follow(ws, args)
+        if args.file == "-":
+            from triage.ingest import read_jsonl_stream
+
+            records, rejects = [], []
+            for r in read_jsonl_stream(sys.stdin, ws.config.schema, max_text_chars=ws.config.max_text_chars):
+                (rejects if not hasattr(r, "item_id") else records).append(r)
+            for rj in rejects:
+                err.print(describe_reject("<stdin>", rj))
+            decisions, batch = ws.route_records(records, source="<stdin>")
+        else:
+            decisions, result, batch = ws.route_file(args.file)
+            for w in result.warnings[:25]:
+                err.print(f"warning: {w}")
+        if args.json or not sys.stdout.isatty():
+            for d in decisions:
+                sys.stdout.write(json.dumps(d, ensure_ascii=False) + "\n")
+        else:
+            render_decisions(decisions)
+            n_held = sum(d["held"] for d in decisions)
+            out.print(f"Batch {batch}: {len(decisions) - n_held} auto-routed, {n_held} held for review. "
+                      "`triage explain ID` shows why.")
+    return 0
+
+
+def _follow(ws: Workspace, args: argparse.Namespace) -> int:
+    """Decide each JSON line as soon as it arrives; a bad line gets an error record on stderr, the stream goes on."""
+    from triage.ingest import read_jsonl_stream
+
+    stream = sys.stdin if args.file == "-" else open(args.file, encoding="utf-8")  # noqa: SIM115
+    try:
+        for r in read_jsonl_stream(stream, ws.config.schema, max_text_chars=ws.config.max_text_chars):
+            if not hasattr(r, "item_id"):
+                sys.stderr.write(json.dumps({"error": r.reason, "line": r.row, "field": r.field}) + "\n")
+                sys.stderr.flush()
+                continue
+            ws.refresh_if_changed()
+            decisions, _ = ws.route_records([r], source="<follow>")
+            sys.stdout.write(json.dumps(decisions[0], ensure_ascii=False) + "\n")
+            sys.stdout.flush()
+    finally:
+        if stream is not sys.stdin:
+            stream.close()
+    return 0
+
+
+def cmd_explain(args: argparse.Namespace) -> int:
+    with _ws(args) as ws:
+        x = ws.explain(args.id, n=args.top)
+        if args.json:
+            _emit_json(x)
+        else:
+            render_explanation(x)
+    return 0
+
+
+def cmd_correct(args: argparse.Namespace) -> int:
+    with _ws(args) as ws:
+        rep = ws.correct(args.id, args.queue, by=args.by)
+        data = {"correction": vars(rep.correction), "model_version": rep.version.version, "before": rep.before,
+                "after": rep.after, "decision": rep.decision}
+        if args.json:
+            _emit_json(data)
+        else:
+            d = rep.decision or {}
+            out.print(f"Correction {rep.correction.id}: {args.id} {rep.before or '(unlabelled)'} -> {rep.after}, "
+                      f"learned; model version {rep.version.version} is active. The item now scores "
+                      f"{d.get('suggested')} ({_pct(d.get('confidence'))}).")
+    return 0
+
+
+def cmd_undo(args: argparse.Namespace) -> int:
+    with _ws(args) as ws:
+        rep = ws.undo(by=args.by)
+        if args.json:
+            _emit_json({"correction": vars(rep.correction), "model_version": rep.version.version})
+        else:
+            out.print(f"Undid the correction of {rep.correction.item_id}: back to {rep.after or '(unlabelled)'}; "
+                      f"model version {rep.version.version} is active.")
+    return 0
+
+
+def cmd_models(args: argparse.Namespace) -> int:
+    with _ws(args) as ws:
+        if args.action == "activate":
+            if args.version is None:
+                raise WorkspaceError("say which version: triage models activate VERSION")
+            mv = ws.activate(args.version)
+            if args.json:
+                _emit_json({"active": mv.version})
+            else:
+                out.print(f"Model version {mv.version} is now active.")
+            return 0
+        versions = ws.models()
+        if args.json:
+            _emit_json([vars(v) for v in versions])
+        else:
+            render_models(versions)
+    return 0
+
+
+def cmd_overview(args: argparse.Namespace) -> int:
+    with _ws(args) as ws:
+        data = ws.overview()
+    if args.json:
+        _emit_json(data)
+    else:
+        out.print_json(json.dumps(data))
+    return 0
+
+
+def cmd_demo(args: argparse.Namespace) -> int:
+    from triage.demo import build_demo
+
+    update, stop = _progress_cb(not args.json and err.is_terminal)
+    try:
+        result = build_demo(Path(args.dir), scenario=args.scenario, progress=update, force=args.force)
+    finally:
+        stop()
+    if args.json:
+        _emit_json(result)
+        return 0
+    out.print(f"Demo workspace [b]{result['workspace']}[/] ({result['scenario']}): imported {result['imported']} "
+              f"items, trained model version {result['version']}.")
+    render_scorecard(result["scorecard"])
+    render_decisions(result["decisions"], limit=15)
+    b = result["batch"]
+    out.print(f"Incoming batch: {b['routed']} of {b['n']} auto-routed, {b['held']} held for review; unseen-word "
+              f"share {_pct(b['unseen_word_share'])}, queue-mix PSI {b['queue_mix_psi']:.3f}"
+              f"{' (drift flagged)' if b['drift_flag'] else ''}.")
+    if "accuracy_on_incoming" in result:
+        out.print(f"Against the incoming batch's true queues: {_pct(result['accuracy_on_incoming'])} of top queues "
+                  f"right, {_pct(result['auto_precision_on_incoming'])} of auto-routed items right.")
+    out.print(SAFETY_NOTE)
+    out.print(f"Next: triage explain {result['decisions'][0]['id']} -w {result['workspace']}   |   "
+              f"triage ui -w {result['workspace']}")
+    if args.ui and sys.stdout.isatty():
+        return _open_ui(Path(result["workspace"]))
+    return 0
+
+
+def _open_ui(path: Path) -> int:
+    try:
+        from triage.tui.app import run_app
+    except ImportError as exc:  # the terminal UI is optional at run time
+        raise WorkspaceError(f"the terminal UI is not available ({exc})") from None
+    run_app(path)
+    return 0
+
+
+def cmd_ui(args: argparse.Namespace) -> int:
+    Workspace.open(args.workspace).close()  # fail with a clear message before the screen opens
+    return _open_ui(Path(args.workspace))
+
+
+def cmd_serve(args: argparse.Namespace) -> int:
+    from triage.service import serve
+
+    serve(args.workspace, host=args.host, port=args.port, token=args.token)
+    return 0
+
+
+# ----- parser ------------------------------------------------------------------------------------------------
+def build_parser() -> argparse.ArgumentParser:
+    common = argparse.ArgumentParser(add_help=False)
+    common.add_argument("-w", "--workspace", default=".", help="workspace folder (default: the current folder)")
+    common.add_argument("--json", action="store_true", help="print JSON instead of tables")
+    common.add_argument("--debug", action="store_true", help="show a traceback on errors")
+    p = argparse.ArgumentParser(prog="triage", description="Route tickets and leads into queues, explain every "
+                                "decision, measure honestly, learn from corrections.", parents=[common])
+    p.add_argument("--version", action="version", version=f"triage {__version__}")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND")
+
+    def add(name: str, fn: Callable[[argparse.Namespace], int], help_text: str) -> argparse.ArgumentParser:
+        sp = sub.add_parser(name, parents=[common], help=help_text, description=help_text)
+        sp.set_defaults(fn=fn)
+        return sp
+
+    sp = add("init", cmd_init, "infer field roles from an export and write triage.toml for review")
+    sp.add_argument("--from", dest="source", required=True, help="a CSV, JSONL or Parquet export")
+    sp.add_argument("--label", help="the column holding the queue (guessed when omitted)")
+    sp.add_argument("--force", action="store_true", help="replace an existing triage.toml")
+    sp = add("import", cmd_import, "import labelled items from a CSV, JSONL or Parquet file")
+    sp.add_argument("file", help="the file to import; rejected rows go to FILE.rejects.csv beside it")
+    add("train", cmd_train, "train a new model version on every labelled item and activate it")
+    add("evaluate", cmd_evaluate, "score the active settings on the newest items: confusion matrix, per-queue "
+        "precision/recall at the cutoffs, coverage")
+    sp = add("route", cmd_route, "decide a queue (or hold for review) for each item; JSON Lines on stdout")
+    sp.add_argument("file", help="a CSV/JSONL/Parquet file, or - for JSON Lines on stdin")
+    sp.add_argument("--follow", action="store_true", help="decide each JSON line as soon as it arrives")
+    sp = add("explain", cmd_explain, "show the evidence for and against one item's decision")
+    sp.add_argument("id", help="the item id")
+    sp.add_argument("--top", type=int, default=10, help="terms to show on each side (default 10)")
+    sp = add("correct", cmd_correct, "move an item to the right queue: journaled, then learned at once")
+    sp.add_argument("id", help="the item id")
+    sp.add_argument("queue", help="the right queue (a new queue name is allowed)")
+    sp.add_argument("--by", default="operator", help="who made the correction")
+    sp = add("undo", cmd_undo, "undo the newest correction (journaled and learned like any correction)")
+    sp.add_argument("--by", default="operator", help="who undid it")
+    sp = add("models", cmd_models, "list model versions, or activate one (rollback)")
+    sp.add_argument("action", nargs="?", choices=["list", "activate"], default="list", help="list or activate")
+    sp.add_argument("version", nargs="?", type=int, help="the version to activate")
+    add("overview", cmd_overview, "items, queues, the active model and the latest batch, in one view")
+    sp = add("demo", cmd_demo, "build a demo workspace from an invented scenario, train, evaluate and route")
+    sp.add_argument("dir", nargs="?", default="triage-demo", help="folder for the demo workspace")
+    sp.add_argument("--scenario", choices=["voltwren", "haulmere"], default="voltwren",
+                    help="voltwren: home-energy support tickets; haulmere: dispatch-software leads")
+    sp.add_argument("--force", action="store_true", help="rebuild the folder if it exists")
+    sp.add_argument("--no-ui", dest="ui", action="store_false", help="do not open the terminal UI at the end")
+    add("ui", cmd_ui, "open the terminal UI on a workspace")
+    sp = add("serve", cmd_serve, "serve routing over HTTP (loopback by default)")
+    sp.add_argument("--host", default="127.0.0.1", help="address to bind (a token is required off loopback)")
+    sp.add_argument("--port", type=int, default=8477, help="port (default 8477)")
+    sp.add_argument("--token", help="bearer token that clients must send")
+    return p
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    if not getattr(args, "fn", None):
+        parser.print_help()
+        return 2
+    try:
+        return int(args.fn(args) or 0)
+    except USER_ERRORS as exc:
+        if args.debug:
+            raise
+        err.print(f"triage {args.command}: error: {exc}", markup=False, highlight=False, soft_wrap=True)
+        return 2
+    except (ValueError, KeyError) as exc:
+        if args.debug:
+            raise
+        err.print(f"triage {args.command}: error: {exc}", markup=False, soft_wrap=True)
+        return 2
+    except KeyboardInterrupt:
+        err.print("interrupted")
+        return 130
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())
