@@ -27,7 +27,7 @@ from typing import Any
 import numpy as np
 from scipy.special import logsumexp
 
-from triage.core.counts import CountTables
+from triage.core.counts import CountTables, _check_queue
 from triage.core.encode import EncodedBatch, EncodedItem, Encoder
 from triage.core.schema import Schema
 from triage.core.tokens import Tokenizer
@@ -233,6 +233,7 @@ class NaiveBayes:
 
     def learn(self, item: Mapping[str, Any], queue: str) -> None:
         """Learn one new labelled item (e.g. a routed item a person has now labelled)."""
+        _check_queue(queue)  # before growing: a refused learn must not leave grown, unrefreshed tables
         grew = self._sync_shape(item)
         n_before = self.counts.n_queues
         enc = self.encoder.encode(item, allow_missing=True)
@@ -246,12 +247,15 @@ class NaiveBayes:
         self._after_change(enc, [q], full=False)
 
     def relabel(self, item: Mapping[str, Any], old: str, new: str) -> None:
-        """The exact correction: forget under the old queue, learn under the new one."""
-        grew = self._sync_shape(item)
+        """The exact correction: forget under the old queue, learn under the new one.
+
+        The item was learned already, so it is encoded with the vocabulary it was counted with; growing it here
+        would add words pruned at fit (min_count, max_vocab) that the old queue never counted.
+        """
         n_before = self.counts.n_queues
         enc = self.encoder.encode(item, allow_missing=True)
         a, b = self.counts.relabel(enc, old, new)
-        self._after_change(enc, [a, b], full=grew or self.counts.n_queues != n_before)
+        self._after_change(enc, [a, b], full=self.counts.n_queues != n_before)
 
     def _after_change(self, enc: EncodedItem, rows: list[int], full: bool) -> None:
         if full:
