@@ -112,7 +112,7 @@ class CountTables:
             elif np.any(self.token_count_[q, ids] < counts - 1e-9) or np.any(self.doc_freq_[q, ids] < 1 - 1e-9):
                 problems.append("it does not hold this item's tokens")
             for k, table in enumerate(self.field_count_):
-                if table[q, item.codes[k]] < 1:
+                if item.codes[k] >= table.shape[1] or table[q, item.codes[k]] < 1:  # unseen bucket: never counted
                     problems.append(f"field #{k} has no item with this value")
             if problems:
                 raise CountError(
