@@ -1,0 +1,175 @@
+"""The terminal UI's app: six views in tabs over one Workspace, keys 1-6 to switch, a command palette, help.
+
+`make_app(path)` is the one factory (the command line and the tests both use it); `run_app(path)` runs it.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from functools import partial
+from pathlib import Path
+
+from textual.app import App, ComposeResult
+from textual.binding import Binding
+from textual.command import DiscoveryHit, Hit, Hits, Provider
+from textual.widgets import Footer, Header, TabbedContent, TabPane
+
+from triage.tui.messages import LabelsChanged, ModelChanged
+from triage.tui.views import (
+    FieldsView,
+    IncomingView,
+    ModelsView,
+    OverviewView,
+    ReviewView,
+    ScorecardView,
+    View,
+)
+from triage.tui.widgets import HelpScreen
+from triage.workspace import Workspace
+
+VIEWS: list[tuple[str, str, type[View], str]] = [
+    ("overview", "1 Overview", OverviewView, "items, queues, the active model, drift"),
+    ("models", "2 Models", ModelsView, "model versions; train, cancel, activate"),
+    ("scorecard", "3 Scorecard", ScorecardView, "confusion matrix, per-queue figures, what-if cutoffs"),
+    ("incoming", "4 Incoming", IncomingView, "the latest batch's decisions and their evidence"),
+    ("review", "5 Review", ReviewView, "held items and likely misroutes; send to a queue, undo"),
+    ("fields", "6 Fields", FieldsView, "value-by-queue counts and smoothed probabilities"),
+]
+
+
+class TriageCommands(Provider):
+    """Command palette entries: every view, and the main actions."""
+
+    def commands(self) -> list[tuple[str, Callable[[], object], str]]:
+        app = self.app
+        assert isinstance(app, TriageApp)
+        out: list[tuple[str, Callable[[], object], str]] = [
+            (f"Show {title[2:].lower()}", partial(app.action_show, key), help_) for key, title, _, help_ in VIEWS
+        ]
+        out += [
+            ("Train a new model version", app.action_train, "runs in the background; x on Models cancels"),
+            ("Cancel the training run", app.action_cancel_training, "the active model stays as it is"),
+            ("Undo the newest correction", app.action_undo, "journaled and learned like any correction"),
+            ("Re-score the held-out items", app.action_rescore, "scorecard with the current labels"),
+            ("Key list", app.action_help, "every key of every view"),
+        ]
+        return out
+
+    async def discover(self) -> Hits:
+        for name, run, help_ in self.commands():
+            yield DiscoveryHit(name, run, help=help_)
+
+    async def search(self, query: str) -> Hits:
+        matcher = self.matcher(query)
+        for name, run, help_ in self.commands():
+            score = matcher.match(name)
+            if score > 0:
+                yield Hit(score, matcher.highlight(name), run, help=help_)
+
+
+class TriageApp(App[None]):
+    """triage's terminal UI over one workspace."""
+
+    CSS_PATH = "app.tcss"
+    TITLE = "triage"
+    COMMANDS = App.COMMANDS | {TriageCommands}
+    BINDINGS = [
+        *[Binding(str(i), f"show('{key}')", title[2:], show=False, id=f"show.{key}", tooltip=f"Show {help_}")
+          for i, (key, title, _, help_) in enumerate(VIEWS, start=1)],
+        Binding("question_mark,f1", "help", "Keys", id="app.help", tooltip="Every key of every view", key_display="?"),
+        Binding("ctrl+r", "reload", "Reload", id="app.reload", tooltip="Read the workspace again"),
+        Binding("q", "quit", "Quit", id="app.quit", tooltip="Leave triage"),
+    ]
+
+    def __init__(self, workspace: Workspace) -> None:
+        super().__init__()
+        self.ws = workspace
+        self.sub_title = str(workspace.root.name)
+
+    def compose(self) -> ComposeResult:
+        yield Header(show_clock=False)
+        with TabbedContent(initial="overview", id="views"):
+            for key, title, cls, _ in VIEWS:
+                with TabPane(title, id=key):
+                    yield cls(self.ws, id=f"{key}-view")
+        yield Footer()
+
+    def on_mount(self) -> None:
+        self.call_after_refresh(self.view("overview").focus_main)
+
+    # ----- views -----
+    def view(self, key: str) -> View:
+        return self.query_one(f"#{key}-view", View)
+
+    def action_show(self, key: str) -> None:
+        self.query_one(TabbedContent).active = key
+        self.view(key).focus_main()
+
+    def on_tabbed_content_tab_activated(self, event: TabbedContent.TabActivated) -> None:
+        if event.pane.id:
+            self.call_after_refresh(self.view(event.pane.id).focus_main)
+
+    def action_reload(self) -> None:
+        self.ws.refresh_if_changed()
+        for key, *_ in VIEWS:
+            self.view(key).reload()
+        self.notify("read the workspace again")
+
+    # ----- actions the palette reaches -----
+    def models_view(self) -> ModelsView:
+        return self.query_one(ModelsView)
+
+    def action_train(self) -> None:
+        self.action_show("models")
+        self.models_view().action_train()
+
+    def action_cancel_training(self) -> None:
+        self.models_view().action_cancel_training()
+
+    def action_undo(self) -> None:
+        self.query_one(ReviewView).action_undo()
+
+    def action_rescore(self) -> None:
+        self.query_one(ScorecardView).action_remeasure()
+
+    def action_help(self) -> None:
+        if isinstance(self.screen, HelpScreen):
+            return
+        sections: list[tuple[str, list[tuple[str, str]]]] = [
+            ("anywhere", [("1 … 6", "switch view (or click a tab)"), ("ctrl+p", "command palette"),
+                          ("? / f1", "this key list"), ("ctrl+r", "read the workspace again"), ("q", "quit"),
+                          ("tab", "next panel")]),
+        ]
+        for _key, title, cls, _ in VIEWS:
+            keys = [(b.key_display or b.key.split(",")[0], b.tooltip or b.description) for b in cls.BINDINGS
+                    if isinstance(b, Binding)]
+            if keys:
+                sections.append((title[2:], keys))
+        sections.append(("Incoming", [("↑ ↓", "choose an item: its evidence shows below")]))
+        sections.append(("Fields", [("↑ ↓", "choose a field")]))
+        self.push_screen(HelpScreen(sections))
+
+    # ----- messages up: refresh what depends on the change -----
+    def on_model_changed(self, message: ModelChanged) -> None:
+        for key, *_ in VIEWS:
+            self.view(key).reload()
+
+    def on_labels_changed(self, message: LabelsChanged) -> None:
+        for key in ("overview", "models", "scorecard", "fields"):
+            self.view(key).reload()
+        if message.undo:
+            self.query_one(ReviewView).rebuild()
+
+
+def make_app(workspace: Path | str) -> TriageApp:
+    """The app over the workspace folder (opened here; raises WorkspaceError/ConfigError if it cannot be)."""
+    return TriageApp(Workspace.open(workspace))
+
+
+def run_app(workspace: Path | str) -> None:
+    """Open the workspace and run the terminal UI until the user quits."""
+    app = make_app(workspace)
+    try:
+        app.run()
+    finally:
+        app.ws.close()

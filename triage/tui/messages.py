@@ -1,0 +1,33 @@
+"""Messages the views send up to the app ("attributes down, messages up"). Each is a small dataclass."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from textual.message import Message
+
+
+@dataclass
+class ModelChanged(Message):
+    """The active model version changed (a training run finished, or a version was activated)."""
+
+    version: int | None
+    why: str
+
+
+@dataclass
+class LabelsChanged(Message):
+    """A correction or an undo was learned; `version` is the new active model version."""
+
+    item_id: str
+    queue: str | None
+    version: int
+    undo: bool = False
+
+
+@dataclass
+class TrainProgress(Message):
+    """A stage of a training run, with the share done (0..1)."""
+
+    stage: str
+    fraction: float

@@ -1,0 +1,844 @@
+"""The six views of the terminal UI. Each takes the Workspace as an attribute and posts messages up.
+
+Views read through the Workspace (and its store's read methods); they read model objects it returns but never
+change them: every change goes through Workspace.train / activate / correct / undo.
+"""
+
+from __future__ import annotations
+
+import threading
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+from rich.console import Group
+from rich.table import Table
+from rich.text import Text
+from textual import work
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Horizontal, VerticalScroll
+from textual.widget import Widget
+from textual.widgets import DataTable, Input, Label, OptionList, ProgressBar, Select, Static
+from textual.widgets.option_list import Option
+from textual.worker import Worker, WorkerState
+
+from triage.core.metrics import Scorecard, precision_coverage_curve, scorecard
+from triage.core.model import NaiveBayes
+from triage.core.routing import decide
+from triage.tui.messages import LabelsChanged, ModelChanged
+from triage.tui.widgets import (
+    ConfirmScreen,
+    QueuePicker,
+    bar,
+    confusion_table,
+    explanation_renderables,
+    num,
+    pct,
+    shade,
+    text_plot,
+)
+from triage.workspace import HOLDOUT_SHARE, Cancelled, Workspace, WorkspaceError
+
+PAGE_ROWS = 200
+SCAN_CHUNK = 2000
+REVIEW_LIMIT = 500
+MISROUTE_CONFIDENCE = 0.9
+CUTOFF_STEP = 0.01
+BY = "tui"
+
+
+def _err(view: Widget, exc: Exception) -> None:
+    view.notify(str(exc), title="could not do that", severity="error", timeout=8)
+
+
+class View(Widget):
+    """A view: reload() re-reads the workspace; `focus_main` is what gets focus when the view is shown."""
+
+    can_focus = False
+    main_id = ""
+
+    def __init__(self, ws: Workspace, **kw: Any) -> None:
+        super().__init__(**kw)
+        self.ws = ws
+
+    def reload(self) -> None:  # pragma: no cover - overridden
+        pass
+
+    def focus_main(self) -> None:
+        if self.main_id:
+            try:
+                self.query_one(f"#{self.main_id}").focus()
+            except Exception:  # noqa: BLE001 - not composed yet
+                pass
+
+
+# ======================================================================================== 1. overview
+class OverviewView(View):
+    """Items, queues, the active model and its scorecard summary, corrections since training, drift."""
+
+    main_id = "overview-scroll"
+
+    def compose(self) -> ComposeResult:
+        with VerticalScroll(id="overview-scroll"):
+            yield Static(id="overview-warning")
+            with Horizontal(id="overview-top"):
+                yield Static(id="overview-model")
+                yield Static(id="overview-batch")
+            yield Static(id="overview-queues")
+
+    def on_mount(self) -> None:
+        self.reload()
+
+    def reload(self) -> None:
+        o = self.ws.overview()
+        never = ", ".join(o["never_auto"]) or "none"
+        self.query_one("#overview-warning", Static).update(Text(
+            f"! Items predicted for a never-auto queue ({never}) are always held for a person, "
+            "whatever the confidence.", style="bold yellow"))
+        m = Table.grid(padding=(0, 2))
+        m.add_column(style="dim")
+        m.add_column(style="bold")
+        m.add_row("items", f"{o['items']}  ({o['labelled']} labelled)")
+        m.add_row("active model", f"version {o['active_version']}" if o["active_version"] else "none: press 2, t")
+        m.add_row("text model", str(o["text_model"] or "—"))
+        card = o["scorecard"] or {}
+        m.add_row("accuracy", pct(card.get("accuracy")))
+        m.add_row("coverage", pct(card.get("coverage")))
+        m.add_row("auto precision", pct(card.get("auto_precision")))
+        m.add_row("scored on", f"{card.get('n', '—')} newest items (held out)")
+        m.add_row("corrections learned", f"{o['corrections_since_training']} since the last training")
+        self.query_one("#overview-model", Static).update(Group(Text("model", style="bold underline"), m))
+        b = Table.grid(padding=(0, 2))
+        b.add_column(style="dim")
+        b.add_column(style="bold")
+        batch = o["latest_batch"]
+        if batch:
+            b.add_row("batch", f"#{batch['id']} {batch['source']}")
+            b.add_row("routed / held", f"{batch['routed']} / {batch['held']}  (coverage {pct(batch['coverage'])})")
+            unseen = batch["unseen_word_share"]
+            b.add_row("unseen words", Text(f"{pct(unseen)}" + ("  ! many new words" if unseen > 0.1 else "  ok"),
+                                           style="yellow" if unseen > 0.1 else ""))
+            psi = batch["queue_mix_psi"]
+            flag = batch.get("drift_flag")
+            b.add_row("queue-mix PSI", Text(f"{psi:.3f}" + ("  ! the queue mix moved" if flag else "  ok"),
+                                            style="bold red" if flag else ""))
+        else:
+            b.add_row("batch", "nothing routed yet (triage route FILE)")
+        self.query_one("#overview-batch", Static).update(Group(Text("latest batch", style="bold underline"), b))
+        q = Table(title="queues (labelled items)", title_justify="left", show_edge=False, box=None,
+                  padding=(0, 1))
+        q.add_column("queue", no_wrap=True)
+        q.add_column("items", justify="right")
+        q.add_column("share", justify="right")
+        q.add_column("", no_wrap=True)
+        q.add_column("latest batch", justify="right")
+        total = sum(o["queues"].values()) or 1
+        top = max(o["queues"].values(), default=1)
+        per_batch = batch["per_queue"] if batch else {}
+        for name, n in o["queues"].items():
+            mark = "  (never auto)" if name in o["never_auto"] else ""
+            q.add_row(name + mark, str(n), pct(n / total), Text(bar(n, top, 24), style="cyan"),
+                      str(per_batch.get(name, 0)) if batch else "—")
+        self.query_one("#overview-queues", Static).update(q)
+
+
+# ======================================================================================== 2. models
+class ModelsView(View):
+    """Model versions; train (in a thread, cancellable) and activate (after a confirmation)."""
+
+    main_id = "models-table"
+    BINDINGS = [
+        Binding("t", "train", "Train", id="models.train", tooltip="Train a new model version on every label"),
+        Binding("x", "cancel_training", "Cancel", id="models.cancel", tooltip="Stop the running training"),
+        Binding("a", "activate", "Activate", id="models.activate", tooltip="Make the selected version active"),
+    ]
+
+    def __init__(self, ws: Workspace, **kw: Any) -> None:
+        super().__init__(ws, **kw)
+        self.cancel_flag = threading.Event()
+        self.last_outcome = ""
+
+    def compose(self) -> ComposeResult:
+        yield Label("t trains a new version · x cancels it · a activates the selected version", classes="hint")
+        with Horizontal(id="train-row"):
+            yield ProgressBar(total=100, show_eta=False, id="train-progress")
+            yield Label("idle", id="train-stage")
+        yield DataTable(id="models-table", cursor_type="row", zebra_stripes=True)
+
+    def on_mount(self) -> None:
+        t = self.query_one("#models-table", DataTable)
+        t.add_columns("", "version", "kind", "created (UTC)", "accuracy", "coverage", "note")
+        self.reload()
+
+    def reload(self) -> None:
+        t = self.query_one("#models-table", DataTable)
+        row = t.cursor_row
+        t.clear()
+        for mv in reversed(self.ws.models()):
+            card = mv.scorecard or {}
+            t.add_row("● active" if mv.active else "", str(mv.version), mv.kind, mv.created_at[:19].replace("T", " "),
+                      pct(card.get("accuracy")), pct(card.get("coverage")), mv.note, key=str(mv.version))
+        if t.row_count:
+            t.move_cursor(row=min(max(row, 0), t.row_count - 1))
+
+    # ----- training -----
+    def action_train(self) -> None:
+        if self.training:
+            self.notify("a training run is already going; x cancels it")
+            return
+        self.cancel_flag.clear()
+        self.query_one("#train-progress", ProgressBar).update(progress=0)
+        self.query_one("#train-stage", Label).update("starting")
+        self.run_training()
+
+    @property
+    def training(self) -> bool:
+        return any(w.is_running for w in self.app.workers if w.group == "train")
+
+    def action_cancel_training(self) -> None:
+        if not self.training:
+            self.notify("no training is running")
+            return
+        self.cancel_flag.set()
+        self.query_one("#train-stage", Label).update("cancelling at the next step…")
+
+    def _progress(self, stage: str, fraction: float) -> None:
+        self.query_one("#train-progress", ProgressBar).update(progress=round(100 * fraction))
+        self.query_one("#train-stage", Label).update(stage)
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="train")
+    def run_training(self) -> str:
+        def progress(stage: str, fraction: float) -> None:
+            self.app.call_from_thread(self._progress, stage, fraction)
+
+        try:
+            report = self.ws.train(progress=progress, cancel=self.cancel_flag.is_set, note="trained in the TUI")
+        except Cancelled as exc:
+            self.app.call_from_thread(self._finished, str(exc), None)
+            return "cancelled"
+        self.app.call_from_thread(self._finished, f"version {report.version.version} is active "
+                                  f"({report.n_items} items, {report.seconds:.1f} s)", report.version.version)
+        return "trained"
+
+    def _finished(self, what: str, version: int | None) -> None:
+        self.last_outcome = what
+        self.query_one("#train-stage", Label).update(what)
+        self.notify(what)
+        if version is not None:
+            self.post_message(ModelChanged(version, "trained"))
+        else:
+            self.query_one("#train-progress", ProgressBar).update(progress=0)
+
+    def on_worker_state_changed(self, event: Worker.StateChanged) -> None:
+        if event.worker.group == "train" and event.state == WorkerState.ERROR:
+            self.query_one("#train-stage", Label).update("training failed")
+            _err(self, event.worker.error or Exception("training failed"))
+
+    # ----- activating -----
+    def action_activate(self) -> None:
+        t = self.query_one("#models-table", DataTable)
+        if not t.row_count:
+            return
+        version = int(t.coordinate_to_cell_key((t.cursor_row, 0)).row_key.value or 0)
+        current = self.ws.active_version.version if self.ws.active_version else None
+        if version == current:
+            self.notify(f"version {version} is already active")
+            return
+
+        def answer(yes: bool | None) -> None:
+            if not yes:
+                return
+            try:
+                self.ws.activate(version)
+            except Exception as exc:  # noqa: BLE001 - shown to the user
+                _err(self, exc)
+                return
+            self.notify(f"version {version} is active")
+            self.post_message(ModelChanged(version, "activated"))
+
+        self.app.push_screen(ConfirmScreen(f"Activate model version {version}? New items will be routed with it, "
+                                           "and corrections learned on top of it."), answer)
+
+
+# ======================================================================================== 3. scorecard
+@dataclass
+class Holdout:
+    """Held-out predictions of the active model's settings: the newest items, scored by a model of the older."""
+
+    y_true: list[str]
+    suggested: list[str]
+    confidence: np.ndarray
+    queues: list[str]
+    never_auto: frozenset[str]
+    targets: dict[str, float]
+    cutoffs: dict[str, float | None] = field(default_factory=dict)
+
+    def card(self, cutoffs: dict[str, float | None]) -> Scorecard:
+        return scorecard(self.y_true, self.suggested, self.confidence, self.queues, cutoffs,
+                         never_auto=self.never_auto, targets=self.targets)
+
+
+def holdout_predictions(ws: Workspace) -> Holdout:
+    """Reproduce the measurement's held-out split: fit the active settings on the older items (by arrival) and
+    route the newest HOLDOUT_SHARE with the active calibration, so cutoffs can be tried on each item."""
+    model, policy = ws.model, ws.policy
+    if model is None or policy is None:
+        raise WorkspaceError("no model yet: train one first (2, then t)")
+    recs = ws.store.labelled_items()
+    n_hold = max(1, int(round(len(recs) * HOLDOUT_SHARE)))
+    older, newer = recs[: len(recs) - n_hold], recs[len(recs) - n_hold:]
+    fitted = NaiveBayes.fit(ws.config.schema, [r.fields for r in older], [r.label or "" for r in older], model.spec)
+    batch = fitted.encoder.transform([r.fields for r in newer], allow_missing=True)
+    verdicts = decide(policy.calibrated(fitted.joint_log_likelihood(batch)), fitted.queues, policy)
+    queues = sorted(set(fitted.queues) | {r.label for r in newer if r.label})
+    never = frozenset(ws.config.never_auto())
+    return Holdout([r.label or "" for r in newer], [v.suggested for v in verdicts],
+                   np.array([v.confidence for v in verdicts]), queues, never,
+                   {q: ws.config.policy(q).target_precision for q in queues},
+                   {q: policy.cutoff(q) for q in queues})
+
+
+class ScorecardView(View):
+    """Confusion matrix, per-queue figures, and what-if cutoffs with a precision/coverage plot."""
+
+    main_id = "queue-table"
+    BINDINGS = [
+        Binding("plus,equals_sign", "nudge(1)", "Cutoff +", id="score.up", tooltip="Raise the selected cutoff by 0.01",
+                key_display="+"),
+        Binding("minus,underscore", "nudge(-1)", "Cutoff −", id="score.down",
+                tooltip="Lower the selected cutoff by 0.01", key_display="-"),
+        Binding("r", "reset", "Reset", id="score.reset", tooltip="Back to the active model's cutoffs"),
+        Binding("e", "remeasure", "Re-score", id="score.remeasure",
+                tooltip="Score the held-out items again with the current labels"),
+    ]
+
+    def __init__(self, ws: Workspace, **kw: Any) -> None:
+        super().__init__(ws, **kw)
+        self.holdout: Holdout | None = None
+        self.cutoffs: dict[str, float | None] = {}
+        self.card: Scorecard | None = None
+
+    def compose(self) -> ComposeResult:
+        yield Static(id="score-summary")
+        with VerticalScroll(id="score-scroll"):
+            yield DataTable(id="queue-table", cursor_type="row")
+            with Horizontal(id="score-lower"):
+                yield Static(id="score-plot")
+                yield Static(id="score-matrix")
+
+    def on_mount(self) -> None:
+        t = self.query_one("#queue-table", DataTable)
+        t.add_columns("queue", "target", "cutoff", "precision", "recall", "F1", "coverage", "held", "routed",
+                      "support")
+        self.reload()
+
+    def reload(self) -> None:
+        mv = self.ws.active_version
+        if mv is not None and mv.scorecard and self.card is None:
+            self.card = Scorecard.from_dict(mv.scorecard)
+            self.cutoffs = {q.queue: q.cutoff for q in self.card.per_queue}
+            self.show()
+        self.measure()
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="score")
+    def measure(self) -> Holdout | None:
+        if self.ws.model is None:
+            return None
+        h = holdout_predictions(self.ws)
+        self.app.call_from_thread(self._measured, h)
+        return h
+
+    def _measured(self, h: Holdout) -> None:
+        self.holdout = h
+        self.cutoffs = dict(h.cutoffs)
+        self.card = h.card(self.cutoffs)
+        self.show()
+
+    def action_remeasure(self) -> None:
+        self.notify("scoring the held-out items again…")
+        self.measure()
+
+    def selected_queue(self) -> str | None:
+        t = self.query_one("#queue-table", DataTable)
+        if not t.row_count or self.card is None:
+            return None
+        return self.card.queues[min(t.cursor_row, len(self.card.queues) - 1)]
+
+    def action_nudge(self, sign: int) -> None:
+        q = self.selected_queue()
+        if q is None or self.holdout is None:
+            self.notify("the held-out items are still being scored")
+            return
+        if q in self.holdout.never_auto:
+            self.notify(f"{q} is never auto-routed: a person reviews every item, whatever the cutoff")
+            return
+        current = self.cutoffs.get(q)
+        start = current if current is not None else 1.0
+        new = round(min(1.0, max(0.0, start + sign * CUTOFF_STEP)), 4)
+        self.cutoffs[q] = new
+        self.card = self.holdout.card(self.cutoffs)
+        self.show()
+
+    def action_reset(self) -> None:
+        if self.holdout is not None:
+            self.cutoffs = dict(self.holdout.cutoffs)
+            self.card = self.holdout.card(self.cutoffs)
+            self.show()
+
+    def show(self) -> None:
+        card = self.card
+        if card is None:
+            self.query_one("#score-summary", Static).update("no scorecard yet: train a model (2, then t)")
+            return
+        changed = self.holdout is not None and any(self.cutoffs.get(q) != self.holdout.cutoffs.get(q)
+                                                   for q in card.queues)
+        s = Text()
+        s.append(f"held-out items {card.n}   accuracy {pct(card.accuracy)}   coverage {pct(card.coverage)}   "
+                 f"auto precision {pct(card.auto_precision)}   macro F1 {num(card.macro_f1)}", style="bold")
+        if self.holdout is None:
+            s.append("   (stored figures; scoring each item…)", style="dim")
+        elif changed:
+            s.append("   what-if cutoffs: not saved (r resets)", style="bold yellow")
+        self.query_one("#score-summary", Static).update(s)
+        t = self.query_one("#queue-table", DataTable)
+        row = t.cursor_row
+        t.clear()
+        for qs in card.per_queue:
+            cut = "never auto" if qs.never_auto else num(self.cutoffs.get(qs.queue, qs.cutoff))
+            t.add_row(qs.queue, num(qs.target), cut, pct(qs.precision), pct(qs.recall), num(qs.f1), pct(qs.coverage),
+                      pct(qs.held_share), str(qs.routed), str(qs.support), key=qs.queue)
+        if t.row_count:
+            t.move_cursor(row=min(max(row, 0), t.row_count - 1))
+        self.query_one("#score-matrix", Static).update(confusion_table(card.queues, card.matrix, card.row_shares()))
+        self.show_plot()
+
+    def show_plot(self) -> None:
+        q = self.selected_queue()
+        plot = self.query_one("#score-plot", Static)
+        if q is None or self.holdout is None:
+            plot.update(Text("precision vs coverage: waiting for the held-out scores", style="dim"))
+            return
+        h = self.holdout
+        sug = np.array(h.suggested)
+        mine = sug == q
+        ok = np.array(h.y_true)[mine] == q
+        _, prec, cov, _ = precision_coverage_curve(h.confidence[mine], ok)
+        qs = next(s for s in self.card.per_queue if s.queue == q) if self.card else None
+        mark = (qs.coverage, qs.precision) if qs is not None and qs.routed else None
+        title = Text(f"{q}: precision vs coverage over its {int(mine.sum())} suggested items\n", style="bold")
+        plot.update(Group(title, text_plot(list(cov), list(prec), mark, width=36, height=7)))
+
+    def on_data_table_row_highlighted(self, event: DataTable.RowHighlighted) -> None:
+        if event.data_table.id == "queue-table":
+            self.show_plot()
+
+
+# ======================================================================================== detail panel
+class ItemDetail(VerticalScroll):
+    """One item's text with its evidence marked, the evidence bars, runner-up and gap."""
+
+    def __init__(self, ws: Workspace, **kw: Any) -> None:
+        super().__init__(**kw)
+        self.ws = ws
+        self.item_id: str | None = None
+        self.explanation: dict[str, Any] | None = None
+
+    def compose(self) -> ComposeResult:
+        yield Static("select an item to see why it went where it went", classes="detail-body")
+
+    def show(self, item_id: str | None) -> None:
+        body = self.query_one(".detail-body", Static)
+        self.item_id = item_id
+        if item_id is None:
+            self.explanation = None
+            body.update("")
+            return
+        try:
+            ex = self.ws.explain(item_id, n=12)
+        except Exception as exc:  # noqa: BLE001 - shown in the panel
+            self.explanation = None
+            body.update(Text(str(exc), style="red"))
+            return
+        self.explanation = ex
+        names = [f.name for f in self.ws.config.schema.text_fields]
+        body.update(Group(*explanation_renderables(ex, names)))
+        self.scroll_home(animate=False)
+
+
+# ======================================================================================== 4. incoming
+@dataclass(frozen=True)
+class Row:
+    item_id: str
+    suggested: str | None
+    confidence: float
+    held: bool
+    runner_up: str | None
+    queue: str | None
+
+
+class IncomingView(View):
+    """The latest batch's decisions, a page at a time, filtered by queue, held and text."""
+
+    main_id = "incoming-table"
+    BINDINGS = [
+        Binding("n,pagedown", "page(1)", "Next page", id="incoming.next", tooltip="The next page of decisions"),
+        Binding("p,pageup", "page(-1)", "Prev page", id="incoming.prev", tooltip="The previous page of decisions"),
+        Binding("slash", "search", "Search", id="incoming.search", tooltip="Search in the items' text",
+                key_display="/"),
+        Binding("h", "cycle_held", "Held/all", id="incoming.held", tooltip="Show all, only held, or only routed"),
+    ]
+
+    def __init__(self, ws: Workspace, **kw: Any) -> None:
+        super().__init__(ws, **kw)
+        self.rows: list[Row] = []
+        self.page = 0
+        self.batch_id: int | None = None
+
+    def compose(self) -> ComposeResult:
+        with Horizontal(id="incoming-filters"):
+            yield Select([], prompt="any queue", id="incoming-queue", compact=True)
+            yield Select([("held and routed", "all"), ("held only", "held"), ("routed only", "routed")],
+                         value="all", allow_blank=False, id="incoming-held", compact=True)
+            yield Input(placeholder="/ search text, enter applies", id="incoming-search", compact=True)
+        yield Label("", id="incoming-status")
+        yield DataTable(id="incoming-table", cursor_type="row", zebra_stripes=True)
+        yield ItemDetail(self.ws, id="incoming-detail")
+
+    def on_mount(self) -> None:
+        t = self.query_one("#incoming-table", DataTable)
+        t.add_columns("item", "suggested", "conf.", "held", "runner-up", "routed to")
+        self.reload()
+
+    def reload(self) -> None:
+        queues = sorted(set(self.ws.model.queues) if self.ws.model else set()) or sorted(self.ws.store.queue_counts())
+        sel = self.query_one("#incoming-queue", Select)
+        value = sel.value
+        sel.set_options([(q, q) for q in queues])
+        if value in queues:
+            sel.value = value
+        self.load()
+
+    def filters(self) -> tuple[str | None, bool | None, str]:
+        q = self.query_one("#incoming-queue", Select).value
+        h = self.query_one("#incoming-held", Select).value
+        held = None if h == "all" else h == "held"
+        text = self.query_one("#incoming-search", Input).value.strip().lower()
+        return (q if isinstance(q, str) else None), held, text
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="incoming")
+    def load(self) -> None:
+        batch = self.ws.store.latest_batch()
+        if batch is None:
+            self.app.call_from_thread(self._loaded, None, [])
+            return
+        queue, held, text = self.filters()
+        rows: list[Row] = []
+        offset = 0
+        while True:
+            chunk = self.ws.store.decisions(batch_id=batch.id, held=held, limit=SCAN_CHUNK, offset=offset)
+            if not chunk:
+                break
+            offset += len(chunk)
+            keep = [d for d in chunk if queue is None or d.suggested == queue]
+            if text and keep:
+                items = {r.item_id: r for r in self.ws.store.get_items([d.item_id for d in keep])}
+                keep = [d for d in keep if any(text in str(v).lower() for v in items[d.item_id].fields.values())]
+            rows.extend(Row(d.item_id, d.suggested, d.confidence, d.held, d.runner_up, d.queue) for d in keep)
+        self.app.call_from_thread(self._loaded, batch.id, rows)
+
+    def _loaded(self, batch_id: int | None, rows: list[Row]) -> None:
+        self.batch_id = batch_id
+        self.rows = rows
+        self.page = 0
+        self.show_page()
+
+    @property
+    def pages(self) -> int:
+        return max(1, -(-len(self.rows) // PAGE_ROWS))
+
+    def show_page(self) -> None:
+        t = self.query_one("#incoming-table", DataTable)
+        t.clear()
+        start = self.page * PAGE_ROWS
+        for r in self.rows[start:start + PAGE_ROWS]:
+            t.add_row(r.item_id, r.suggested or "", num(r.confidence), "held" if r.held else "",
+                      r.runner_up or "", r.queue or "—", key=r.item_id)
+        status = self.query_one("#incoming-status", Label)
+        if self.batch_id is None:
+            status.update("nothing routed yet: `triage route FILE` routes a batch")
+        else:
+            end = min(start + PAGE_ROWS, len(self.rows))
+            status.update(f"batch #{self.batch_id}: {len(self.rows)} decisions match · rows {start + 1 if self.rows else 0}"
+                          f"–{end} · page {self.page + 1}/{self.pages} (n/p)")
+        if t.row_count:
+            t.move_cursor(row=0)
+        else:
+            self.query_one(ItemDetail).show(None)
+
+    def action_page(self, step: int) -> None:
+        new = min(max(0, self.page + step), self.pages - 1)
+        if new != self.page:
+            self.page = new
+            self.show_page()
+
+    def action_search(self) -> None:
+        self.query_one("#incoming-search", Input).focus()
+
+    def action_cycle_held(self) -> None:
+        sel = self.query_one("#incoming-held", Select)
+        order = ["all", "held", "routed"]
+        sel.value = order[(order.index(str(sel.value)) + 1) % 3]
+
+    def on_select_changed(self, event: Select.Changed) -> None:
+        event.stop()
+        if self.is_mounted:
+            self.load()
+
+    def on_input_submitted(self, event: Input.Submitted) -> None:
+        event.stop()
+        self.load()
+        self.query_one("#incoming-table", DataTable).focus()
+
+    def on_data_table_row_highlighted(self, event: DataTable.RowHighlighted) -> None:
+        event.stop()
+        if event.row_key is not None and event.row_key.value:
+            self.query_one(ItemDetail).show(str(event.row_key.value))
+
+
+# ======================================================================================== 5. review
+@dataclass(frozen=True)
+class WorkItem:
+    """One line of the review worklist."""
+
+    item_id: str
+    why: str  # "person must review" | "likely misroute" | "held"
+    suggested: str
+    confidence: float
+    runner_up: str | None
+    runner_up_confidence: float
+    label: str | None
+    score: float
+
+
+def worklist(ws: Workspace, limit: int = REVIEW_LIMIT) -> list[WorkItem]:
+    """Held items and likely misroutes, most useful first.
+
+    First the items a person must review (suggested for a never-auto queue in the batch or now: they stay on
+    the list until someone gives them a queue), then labelled items whose label a confident model disagrees
+    with (highest confidence first), then the other held items, closest calls first (runner-up's confidence
+    descending). An item leaves the list when it gets a label, or when the current model routes it.
+    """
+    model, policy = ws.model, ws.policy
+    if model is None or policy is None:
+        return []
+    never = set(ws.config.never_auto())
+    out: list[WorkItem] = []
+    batch = ws.store.latest_batch()
+    if batch is not None:
+        offset = 0
+        while True:
+            chunk = ws.store.decisions(batch_id=batch.id, held=True, limit=SCAN_CHUNK, offset=offset)
+            if not chunk:
+                break
+            offset += len(chunk)
+            recs = [r for r in ws.store.get_items([d.item_id for d in chunk]) if r.label is None]
+            if not recs:
+                continue
+            sticky = {d.item_id for d in chunk if d.suggested in never}
+            for rec, d in zip(recs, ws.decide_records(recs), strict=True):
+                person = d["suggested"] in never or rec.item_id in sticky
+                if not person and not d["held"]:
+                    continue
+                why = "person must review" if person else "held"
+                score = 3.0 + d["confidence"] if person else d["runner_up_confidence"]
+                out.append(WorkItem(rec.item_id, why, d["suggested"], d["confidence"], d["runner_up"],
+                                    d["runner_up_confidence"], None, score))
+    labelled = ws.store.labelled_items()
+    if labelled:
+        enc = model.encoder.transform([r.fields for r in labelled], allow_missing=True)
+        probs = policy.calibrated(model.joint_log_likelihood(enc))
+        order = np.argsort(-probs, axis=1)
+        queues = model.queues
+        for i, rec in enumerate(labelled):
+            a, b = int(order[i, 0]), int(order[i, 1]) if probs.shape[1] > 1 else int(order[i, 0])
+            conf = float(probs[i, a])
+            if queues[a] != rec.label and conf >= MISROUTE_CONFIDENCE:
+                out.append(WorkItem(rec.item_id, "likely misroute", queues[a], conf, queues[b], float(probs[i, b]),
+                                    rec.label, 1.0 + conf))
+    out.sort(key=lambda w: -w.score)
+    return out[:limit]
+
+
+class ReviewView(View):
+    """The worklist: send the selected item to a queue (learned at once), accept the suggestion, undo."""
+
+    main_id = "review-table"
+    BINDINGS = [
+        Binding("s", "send", "Send to…", id="review.send", tooltip="Pick the queue this item belongs to"),
+        Binding("a", "accept", "Accept", id="review.accept", tooltip="The suggested queue is right: learn it"),
+        Binding("u", "undo", "Undo", id="review.undo", tooltip="Undo the newest correction"),
+        Binding("g", "rebuild", "Rebuild", id="review.rebuild", tooltip="Build the worklist again"),
+    ]
+
+    def __init__(self, ws: Workspace, **kw: Any) -> None:
+        super().__init__(ws, **kw)
+        self.items: list[WorkItem] = []
+        self.done = 0
+
+    def compose(self) -> ComposeResult:
+        yield Label("", id="review-status")
+        yield DataTable(id="review-table", cursor_type="row", zebra_stripes=True)
+        yield ItemDetail(self.ws, id="review-detail")
+
+    def on_mount(self) -> None:
+        t = self.query_one("#review-table", DataTable)
+        t.add_columns("why", "item", "suggested", "conf.", "runner-up", "conf.", "label")
+        self.reload()
+
+    def reload(self) -> None:
+        self.rebuild()
+
+    def action_rebuild(self) -> None:
+        self.rebuild()
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="review")
+    def rebuild(self) -> list[WorkItem]:
+        items = worklist(self.ws)
+        self.app.call_from_thread(self._built, items)
+        return items
+
+    def _built(self, items: list[WorkItem]) -> None:
+        self.items = items
+        self.show()
+
+    def show(self) -> None:
+        t = self.query_one("#review-table", DataTable)
+        row = t.cursor_row
+        t.clear()
+        for w in self.items:
+            why = Text(w.why, style="bold yellow" if w.why == "person must review" else
+                       "magenta" if w.why == "likely misroute" else "")
+            t.add_row(why, w.item_id, w.suggested, num(w.confidence), w.runner_up or "",
+                      num(w.runner_up_confidence), w.label or "—", key=w.item_id)
+        n_person = sum(1 for w in self.items if w.why == "person must review")
+        n_mis = sum(1 for w in self.items if w.why == "likely misroute")
+        self.query_one("#review-status", Label).update(
+            f"{len(self.items)} to look at: {n_person} a person must review, {n_mis} likely misroutes, "
+            f"{len(self.items) - n_person - n_mis} held · {self.done} done here · s send · a accept · u undo")
+        if t.row_count:
+            t.move_cursor(row=min(max(row, 0), t.row_count - 1))
+        else:
+            self.query_one(ItemDetail).show(None)
+
+    def selected(self) -> WorkItem | None:
+        t = self.query_one("#review-table", DataTable)
+        if not t.row_count:
+            return None
+        key = t.coordinate_to_cell_key((t.cursor_row, 0)).row_key.value
+        return next((w for w in self.items if w.item_id == key), None)
+
+    def action_send(self) -> None:
+        w = self.selected()
+        if w is None:
+            return
+        queues = sorted(set(self.ws.model.queues if self.ws.model else []) | set(self.ws.store.queue_counts()))
+
+        def picked(queue: str | None) -> None:
+            if queue:
+                self.correct(w, queue)
+
+        self.app.push_screen(QueuePicker(w.item_id, queues, w.suggested, self.ws.config.never_auto()), picked)
+
+    def action_accept(self) -> None:
+        w = self.selected()
+        if w is not None:
+            self.correct(w, w.suggested)
+
+    def correct(self, w: WorkItem, queue: str) -> None:
+        try:
+            report = self.ws.correct(w.item_id, queue, by=BY)
+        except Exception as exc:  # noqa: BLE001 - shown to the user
+            _err(self, exc)
+            return
+        self.done += 1
+        self.items = [x for x in self.items if x.item_id != w.item_id]
+        self.show()
+        self.notify(f"{w.item_id}: {report.before or 'no queue'} → {queue}; learned, version {report.version.version}")
+        self.post_message(LabelsChanged(w.item_id, queue, report.version.version))
+
+    def action_undo(self) -> None:
+        try:
+            report = self.ws.undo(by=BY)
+        except Exception as exc:  # noqa: BLE001
+            _err(self, exc)
+            return
+        c = report.correction
+        self.done = max(0, self.done - 1)
+        self.notify(f"undone: {c.item_id} is back to {c.to_queue or 'no queue'} (version {report.version.version})")
+        self.post_message(LabelsChanged(c.item_id, c.to_queue, report.version.version, undo=True))
+
+    def on_data_table_row_highlighted(self, event: DataTable.RowHighlighted) -> None:
+        event.stop()
+        if event.row_key is not None and event.row_key.value:
+            self.query_one(ItemDetail).show(str(event.row_key.value))
+
+
+# ======================================================================================== 6. field tables
+class FieldsView(View):
+    """Per value field: the value-by-queue counts and the smoothed probabilities, unseen column included."""
+
+    main_id = "field-list"
+
+    def compose(self) -> ComposeResult:
+        with Horizontal():
+            yield OptionList(id="field-list")
+            with VerticalScroll(id="field-tables"):
+                yield Label("", id="field-title")
+                yield DataTable(id="field-counts", cursor_type="none")
+                yield Label("smoothed P(value | queue)   (shade: ░▒▓█ by size)", id="field-prob-title")
+                yield DataTable(id="field-probs", cursor_type="none")
+
+    def on_mount(self) -> None:
+        self.reload()
+
+    def reload(self) -> None:
+        ol = self.query_one("#field-list", OptionList)
+        keep = ol.highlighted
+        ol.clear_options()
+        for f in self.ws.config.schema.value_fields:
+            ol.add_option(Option(f"{f.name} ({f.role.value})", id=f.name))
+        if ol.option_count:
+            ol.highlighted = keep if keep is not None and keep < ol.option_count else 0
+            self.show_field(ol.highlighted)
+
+    def on_option_list_option_highlighted(self, event: OptionList.OptionHighlighted) -> None:
+        self.show_field(event.option_index)
+
+    def show_field(self, k: int | None) -> None:
+        model = self.ws.model
+        counts_t = self.query_one("#field-counts", DataTable)
+        probs_t = self.query_one("#field-probs", DataTable)
+        counts_t.clear(columns=True)
+        probs_t.clear(columns=True)
+        fields = self.ws.config.schema.value_fields
+        if model is None or k is None or k >= len(fields):
+            self.query_one("#field-title", Label).update("no model yet")
+            return
+        f = model.encoder.schema.value_fields[k]
+        labels = model.encoder.field_labels(f)
+        counts = model.counts.field_count_[k]
+        logp = model.field_log_[k]
+        self.query_one("#field-title", Label).update(
+            f"{f.name}: items per value and queue (counts; alpha {model.spec.alpha_fields:g} smooths the "
+            "probabilities below)")
+        counts_t.add_column("queue", key="queue")
+        probs_t.add_column("queue", key="queue")
+        for j, lab in enumerate(labels):
+            counts_t.add_column(lab, key=f"c{j}")
+            probs_t.add_column(lab, key=f"p{j}")
+        for i, q in enumerate(model.queues):
+            row = [int(counts[i, j]) if j < counts.shape[1] else 0 for j in range(len(labels))]
+            counts_t.add_row(q, *[str(v) for v in row])
+            ps = np.exp(logp[i])
+            probs_t.add_row(q, *[f"{p:.3f}{shade(p)}" for p in ps])

@@ -1,0 +1,280 @@
+"""Renderings and small screens shared by the views.
+
+Everything drawn here reads without colour too: shares are printed as numbers and as shade characters,
+evidence is marked with + and - as well as green and red, and bars are made of block characters.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from collections.abc import Iterable, Mapping, Sequence
+from typing import Any
+
+from rich.table import Table
+from rich.text import Text
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Vertical
+from textual.screen import ModalScreen
+from textual.widgets import Button, Label, OptionList, Static
+from textual.widgets.option_list import Option
+
+SHADES = " ░▒▓█"
+FOR_MARK = "+"
+AGAINST_MARK = "−"
+WORD = re.compile(r"\w+", re.UNICODE)
+
+
+def pct(x: float | None) -> str:
+    return "—" if x is None else f"{100 * x:.1f}%"
+
+
+def num(x: float | None, digits: int = 2) -> str:
+    return "—" if x is None else f"{x:.{digits}f}"
+
+
+def shade(share: float) -> str:
+    """A shade character for a share in [0, 1]: blank for none, full block for (nearly) all."""
+    if share <= 0:
+        return SHADES[0]
+    return SHADES[min(len(SHADES) - 1, 1 + int(share * (len(SHADES) - 1) - 1e-9))]
+
+
+def bar(value: float, top: float, width: int) -> str:
+    """A bar of block characters, `width` long at `top`, at least one block for any positive value."""
+    if top <= 0 or value <= 0:
+        return ""
+    n = max(1, round(width * min(value, top) / top))
+    return "█" * n
+
+
+def cell_style(share: float, diagonal: bool) -> str:
+    """Background by row share in the 16 basic colours: green family on the diagonal, red family off it."""
+    if share <= 0:
+        return ""
+    if diagonal:
+        return "black on green" if share >= 0.5 else "black on bright_green" if share >= 0.2 else "green"
+    return "white on red" if share >= 0.2 else "black on yellow" if share >= 0.05 else "yellow"
+
+
+def short_names(queues: Sequence[str]) -> list[str]:
+    """Column keys for a matrix: A, B, C ... (the legend names them)."""
+    keys = []
+    for i in range(len(queues)):
+        k, s = i, ""
+        while True:
+            s = chr(ord("A") + k % 26) + s
+            k = k // 26 - 1
+            if k < 0:
+                break
+        keys.append(s)
+    return keys
+
+
+def confusion_table(queues: Sequence[str], matrix: Sequence[Sequence[int]],
+                    shares: Sequence[Sequence[float]]) -> Table:
+    """Rows true queue, columns suggested queue; each cell: count, row share in %, shade character."""
+    keys = short_names(queues)
+    t = Table(title="confusion matrix: rows true queue, columns suggested; cell = count  row-share shade",
+              title_justify="left", show_edge=False, pad_edge=False, padding=(0, 1), expand=False)
+    t.add_column("true \\ sugg.", no_wrap=True)
+    for k in keys:
+        t.add_column(k, justify="right", no_wrap=True)
+    t.add_column("n", justify="right")
+    for i, q in enumerate(queues):
+        cells: list[Text | str] = [f"{keys[i]} {q}"]
+        for j in range(len(queues)):
+            s = shares[i][j]
+            c = matrix[i][j]
+            txt = f"{c} {round(100 * s):>3}{shade(s)}" if c else "·"
+            cells.append(Text(txt, style=cell_style(s, i == j)))
+        cells.append(str(sum(matrix[i])))
+        t.add_row(*cells)
+    return t
+
+
+def evidence_table(terms_for: Sequence[Mapping[str, Any]], terms_against: Sequence[Mapping[str, Any]],
+                   width: int = 14) -> Table:
+    """Bars for the strongest terms for the suggestion and against it (towards the runner-up)."""
+    top = max([abs(float(t["weight"])) for t in [*terms_for, *terms_against]] or [1.0])
+    t = Table(show_header=True, show_edge=False, pad_edge=False, box=None, padding=(0, 1), expand=False)
+    t.add_column("", no_wrap=True)
+    t.add_column("kind", style="dim", no_wrap=True)
+    t.add_column("evidence", no_wrap=True, max_width=28, overflow="ellipsis")
+    t.add_column("weight", justify="right", no_wrap=True)
+    t.add_column("", no_wrap=True)
+    for mark, style, terms in ((FOR_MARK, "green", terms_for), (AGAINST_MARK, "red", terms_against)):
+        for term in terms:
+            w = float(term["weight"])
+            t.add_row(Text(mark, style=f"bold {style}"), str(term["kind"]), str(term["feature"]),
+                      f"{w:+.2f}", Text(bar(abs(w), top, width), style=style))
+    return t
+
+
+def marked_text(text: str, weights: Mapping[str, float]) -> Text:
+    """The text with evidence words marked: [+word] in green pushes for the suggestion, [−word] in red against."""
+    out = Text()
+    pos = 0
+    for m in WORD.finditer(text):
+        w = weights.get(m.group(0).lower())
+        if w is None or w == 0:
+            continue
+        out.append(text[pos:m.start()])
+        if w > 0:
+            out.append(f"[{FOR_MARK}{m.group(0)}]", style="bold green")
+        else:
+            out.append(f"[{AGAINST_MARK}{m.group(0)}]", style="bold red")
+        pos = m.end()
+    out.append(text[pos:])
+    return out
+
+
+def explanation_renderables(ex: Mapping[str, Any], text_fields: Iterable[str]) -> list[Any]:
+    """Header, marked text and evidence bars for one `Workspace.explain` result."""
+    words = {str(t["feature"]).lower(): float(t["weight"])
+             for t in [*ex["for"], *ex["against"]] if t["kind"] == "token"}
+    head = Text()
+    head.append(f"{ex['id']}  ", style="bold")
+    head.append(f"suggested {ex['suggested']} {num(ex['confidence'])}")
+    if ex.get("runner_up"):
+        head.append(f"  runner-up {ex['runner_up']} {num(ex['runner_up_confidence'])}")
+        head.append(f"  gap {ex['log_odds_gap']:.2f} (log-odds)")
+    head.append("\n")
+    head.append("HELD: " if ex["held"] else "routed: ", style="bold yellow" if ex["held"] else "bold")
+    head.append(str(ex["reason"]))
+    if ex.get("label"):
+        head.append(f"   label: {ex['label']}", style="bold")
+    body = Text()
+    for name in text_fields:
+        value = ex["fields"].get(name)
+        if value:
+            body.append(f"{name}: ", style="dim")
+            body.append_text(marked_text(str(value), words))
+            body.append("\n")
+    others = [f"{k}={v}" for k, v in ex["fields"].items() if k not in set(text_fields)]
+    body.append("  ".join(others), style="dim")
+    if ex.get("unseen_words"):
+        body.append(f"\nunseen words: {', '.join(ex['unseen_words'][:12])}", style="dim")
+    return [head, body, evidence_table(ex["for"], ex["against"])]
+
+
+def text_plot(xs: Sequence[float], ys: Sequence[float], mark: tuple[float, float] | None = None,
+              width: int = 40, height: int = 8, x_label: str = "coverage", y_label: str = "precision") -> Text:
+    """A small scatter of (x, y) in [0, 1] x [y_min, 1] with '•' points and the current setting as '◆'."""
+    if not xs:
+        return Text("(no items suggested for this queue in the held-out set)", style="dim")
+    y_min = min(min(ys), mark[1] if mark else 1.0)
+    y_min = max(0.0, math.floor(y_min * 10) / 10)
+    if y_min >= 1.0:
+        y_min = 0.9
+    grid = [[" "] * width for _ in range(height)]
+
+    def place(x: float, y: float) -> tuple[int, int]:
+        c = min(width - 1, max(0, round(x * (width - 1))))
+        r = min(height - 1, max(0, round((1.0 - y) / (1.0 - y_min) * (height - 1))))
+        return r, c
+
+    for x, y in zip(xs, ys, strict=True):
+        r, c = place(x, y)
+        grid[r][c] = "•"
+    if mark is not None:
+        r, c = place(*mark)
+        grid[r][c] = "◆"
+    out = Text()
+    for r, row in enumerate(grid):
+        label = "1.00" if r == 0 else f"{y_min:.2f}" if r == height - 1 else "    "
+        out.append(f"{label} │")
+        for ch in row:
+            out.append(ch, style="bold yellow" if ch == "◆" else "cyan" if ch == "•" else "")
+        out.append("\n")
+    out.append("     └" + "─" * width + "\n")
+    out.append(f"      0{' ' * (width - 2)}1  {x_label} →   ↑ {y_label}   ◆ = current cutoff", style="dim")
+    return out
+
+
+# ----- small screens ----------------------------------------------------------------------------------------
+class ConfirmScreen(ModalScreen[bool]):
+    """Ask a yes/no question; dismisses with True for yes."""
+
+    BINDINGS = [
+        Binding("y", "answer(True)", "Yes", id="confirm.yes", tooltip="Go ahead"),
+        Binding("n,escape", "answer(False)", "No", id="confirm.no", tooltip="Leave things as they are"),
+    ]
+
+    def __init__(self, question: str) -> None:
+        super().__init__()
+        self.question = question
+
+    def compose(self) -> ComposeResult:
+        with Vertical(id="dialog"):
+            yield Label(self.question, id="question")
+            yield Button("Yes (y)", id="yes", variant="primary")
+            yield Button("No (n)", id="no")
+
+    def on_button_pressed(self, event: Button.Pressed) -> None:
+        self.dismiss(event.button.id == "yes")
+
+    def action_answer(self, yes: bool) -> None:
+        self.dismiss(yes)
+
+
+class QueuePicker(ModalScreen[str | None]):
+    """Choose the queue to send an item to; dismisses with the queue, or None when left with escape."""
+
+    BINDINGS = [Binding("escape", "leave", "Back", id="picker.back", tooltip="Send nowhere")]
+
+    def __init__(self, item_id: str, queues: Sequence[str], suggested: str | None, never_auto: Iterable[str]) -> None:
+        super().__init__()
+        self.item_id = item_id
+        self.queues = list(queues)
+        self.suggested = suggested
+        self.never = set(never_auto)
+
+    def compose(self) -> ComposeResult:
+        with Vertical(id="dialog"):
+            yield Label(f"Send {self.item_id} to which queue?  (enter picks, escape leaves)")
+            options = []
+            for q in self.queues:
+                note = "  ← suggested" if q == self.suggested else ""
+                note += "  (never auto-routed)" if q in self.never else ""
+                options.append(Option(f"{q}{note}", id=q))
+            yield OptionList(*options, id="queue-options")
+
+    def on_mount(self) -> None:
+        ol = self.query_one(OptionList)
+        ol.focus()
+        if self.suggested in self.queues:
+            ol.highlighted = self.queues.index(self.suggested)
+
+    def on_option_list_option_selected(self, event: OptionList.OptionSelected) -> None:
+        self.dismiss(event.option.id)
+
+    def action_leave(self) -> None:
+        self.dismiss(None)
+
+
+class HelpScreen(ModalScreen[None]):
+    """Every key of the app and of each view."""
+
+    BINDINGS = [Binding("escape,q,question_mark,f1", "leave", "Close", id="help.close", tooltip="Close the key list")]
+
+    def __init__(self, sections: Sequence[tuple[str, Sequence[tuple[str, str]]]]) -> None:
+        super().__init__()
+        self.sections = sections
+
+    def compose(self) -> ComposeResult:
+        t = Table(title="keys (escape closes)", title_justify="left", show_edge=False, box=None, padding=(0, 2))
+        t.add_column("where", style="bold")
+        t.add_column("key", style="bold cyan", no_wrap=True)
+        t.add_column("does")
+        for where, keys in self.sections:
+            first = True
+            for key, what in keys:
+                t.add_row(where if first else "", key, what)
+                first = False
+        with Vertical(id="dialog"):
+            yield Static(t, id="help-keys")
+
+    def action_leave(self) -> None:
+        self.dismiss(None)
