@@ -365,6 +365,77 @@ def cmd_overview(args: argparse.Namespace) -> int:
     return 0
 
 
+def cmd_tune(args: argparse.Namespace) -> int:
+    from triage import tuning
+
+    with _ws(args) as ws:
+        update, stop = _progress_cb(not args.json and err.is_terminal)
+        try:
+            rows = tuning.run_grid(ws, folds=args.folds, progress=update)
+        finally:
+            stop()
+        if args.adopt:
+            tuning.adopt(ws, rows[0])
+        if args.json:
+            _emit_json({"settings": [r.to_dict() for r in rows], "adopted": rows[0].to_dict() if args.adopt else None})
+            return 0
+        t = Table(title=f"{len(rows)} settings, {args.folds}-fold cross-validation, best first", title_justify="left")
+        for col in ("text model", "alpha", "bigrams", "fields", "accuracy", "macro-F1", "log loss",
+                    "auto-routed at target"):
+            t.add_column(col, justify="left" if col == "text model" else "right")
+        for r in rows[: args.top]:
+            t.add_row(r.text_model, f"{r.alpha_text:g}", "yes" if r.bigrams else "no", "yes" if r.fields else "no",
+                      _pct(r.accuracy), f"{r.macro_f1:.3f}", f"{r.log_loss:.3f}", _pct(r.coverage))
+        out.print(t)
+        best = rows[0]
+        verb = "Adopted into triage.toml; run `triage train`." if args.adopt else "Adopt it with `triage tune --adopt`."
+        out.print(f"Recommended: {best.text_model}, alpha {best.alpha_text:g}, bigrams "
+                  f"{'on' if best.bigrams else 'off'}. {verb}")
+    return 0
+
+
+def cmd_lift(args: argparse.Namespace) -> int:
+    from triage import tuning
+
+    with _ws(args) as ws:
+        data = tuning.lift_for(ws, args.queue)
+    if args.json:
+        _emit_json(data)
+        return 0
+    t = Table(title=f"Lift for {data['queue']} by decile of its score ({data['items']} newest items, "
+              f"{data['positives']} in the queue)", title_justify="left")
+    for col in ("decile", "items", "in queue", "rate", "lift", "cumulative gain"):
+        t.add_column(col, justify="right")
+    for d in data["deciles"]:
+        t.add_row(str(d["bin"]), str(d["n"]), str(d["positives"]), _pct(d["rate"]), f"{d['lift']:.2f}",
+                  _pct(d["cumulative_gain"]))
+    out.print(t)
+    out.print(f"The top 10% by score holds {_pct(data['captured_top_10'])} of the queue; the top 20% holds "
+              f"{_pct(data['captured_top_20'])}.")
+    return 0
+
+
+def cmd_independence(args: argparse.Namespace) -> int:
+    from triage import tuning
+
+    with _ws(args) as ws:
+        rows = tuning.independence(ws)
+    if args.json:
+        _emit_json(rows)
+        return 0
+    t = Table(title="Dependence between predictors given the queue (conditional mutual information)",
+              title_justify="left")
+    for col in ("a", "b", "CMI (nats)", "flag"):
+        t.add_column(col)
+    for r in rows[:20]:
+        t.add_row(r["a"], r["b"], f"{r['cmi_nats']:.4f}", "double-counts evidence" if r["flagged"] else "")
+    out.print(t)
+    n = sum(r["flagged"] for r in rows)
+    out.print(f"{n} flagged pair(s) (CMI > {tuning.CMI_FLAG} nats). A flagged pair of fields could be merged into "
+              "one joint field in the export.")
+    return 0
+
+
 def cmd_demo(args: argparse.Namespace) -> int:
     from triage.demo import build_demo
 
@@ -457,6 +528,13 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("action", nargs="?", choices=["list", "activate"], default="list", help="list or activate")
     sp.add_argument("version", nargs="?", type=int, help="the version to activate")
     add("overview", cmd_overview, "items, queues, the active model and the latest batch, in one view")
+    sp = add("tune", cmd_tune, "compare model settings by cross-validation, side by side; --adopt the best")
+    sp.add_argument("--folds", type=int, default=5, help="cross-validation folds (default 5)")
+    sp.add_argument("--top", type=int, default=15, help="rows to show (default 15)")
+    sp.add_argument("--adopt", action="store_true", help="write the best setting into triage.toml")
+    sp = add("lift", cmd_lift, "lift and cumulative gains by decile of one queue's score (ranking leads)")
+    sp.add_argument("queue", help="the queue to rank for, e.g. enterprise")
+    add("independence", cmd_independence, "check which predictors double-count evidence given the queue")
     sp = add("demo", cmd_demo, "build a demo workspace from an invented scenario, train, evaluate and route")
     sp.add_argument("dir", nargs="?", default="triage-demo", help="folder for the demo workspace")
     sp.add_argument("--scenario", choices=["voltwren", "haulmere"], default="voltwren",

@@ -65,6 +65,20 @@ class Measurement:
     calibration: dict[str, Any]
     cutoffs: dict[str, dict[str, Any]]
     split: dict[str, Any]
+    # the held-out rows behind the scorecard, so cutoffs can be moved and lift computed without refitting
+    holdout_ids: list[str] = field(default_factory=list)
+    holdout_labels: list[str] = field(default_factory=list)
+    holdout_probs: np.ndarray | None = None  # (n, len(model_queues)) calibrated probabilities
+    model_queues: list[str] = field(default_factory=list)
+
+    def rescore(self, cutoffs: dict[str, float | None]) -> Scorecard:
+        """The scorecard of the same held-out rows under other cutoffs (what-if for the cutoff keys in the UI)."""
+        assert self.holdout_probs is not None
+        verdicts = decide(self.holdout_probs, self.model_queues, replace(self.policy, cutoffs=cutoffs))
+        return scorecard(self.holdout_labels, [v.suggested for v in verdicts],
+                         np.array([v.confidence for v in verdicts]), self.scorecard.queues, cutoffs,
+                         never_auto=self.policy.never_auto,
+                         targets={q.queue: q.target for q in self.scorecard.per_queue})
 
 
 @dataclass
@@ -292,7 +306,8 @@ class Workspace:
                          targets={q: self.config.policy(q).target_precision for q in all_queues})
         split = {"kind": "time", "train_items": len(older), "test_items": len(newer),
                  "test_from": newer[0].arrived_at, "test_to": newer[-1].arrived_at}
-        return Measurement(spec, policy, card, calibration, cutoff_info, split)
+        return Measurement(spec, policy, card, calibration, cutoff_info, split, [r.item_id for r in newer],
+                           [r.label or "" for r in newer], probs, list(model.queues))
 
     def train(self, *, progress: Progress | None = None, cancel: Callable[[], bool] | None = None,
               note: str = "") -> TrainReport:

@@ -1,0 +1,155 @@
+"""Model selection over a grid, lift for ranking leads, and the check of the independence assumption.
+
+The grid runs on one tokenisation pass: the encoder is fitted with bigrams, and the unigram settings use the
+unigram columns of the same sparse matrix. "Fields off" settings use the same matrix with no field codes.
+Every setting here keeps learning from corrections exact, because each is a function of plain counts.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+from typing import Any
+
+import numpy as np
+
+from triage.core.calibrate import TemperatureScaler
+from triage.core.encode import EncodedBatch, Encoder
+from triage.core.metrics import captured_share, conditional_mutual_information, lift_table, solve_cutoff
+from triage.core.model import TEXT_MODELS
+from triage.core.schema import Schema
+from triage.core.selection import out_of_fold_jll, score_jll
+from triage.core.tokens import Tokenizer
+from triage.workspace import Workspace, spec_from_config
+
+ALPHAS = (0.1, 0.5, 1.0)
+# conditional mutual information above this (nats) flags a pair as double-counting evidence
+# (common practice, no source: a rule of thumb, about a tenth of a bit)
+CMI_FLAG = 0.07
+
+
+@dataclass(frozen=True)
+class GridRow:
+    text_model: str
+    alpha_text: float
+    bigrams: bool
+    fields: bool
+    accuracy: float
+    macro_f1: float
+    log_loss: float
+    coverage: float  # share auto-routed at each queue's target precision (cutoffs solved on the same folds)
+
+    def to_dict(self) -> dict[str, Any]:
+        return dict(vars(self))
+
+
+def _restrict(encoder: Encoder, batch: EncodedBatch, bigrams: bool, fields: bool) -> tuple[Encoder, EncodedBatch]:
+    """A view of the one tokenisation pass: unigram columns only and/or no field codes."""
+    schema = encoder.schema if fields else Schema(fields=encoder.schema.text_fields, id=encoder.schema.id,
+                                                  label=encoder.schema.label, time=encoder.schema.time)
+    enc = Encoder(schema, Tokenizer(bigrams=bigrams, max_token_chars=encoder.tokenizer.max_token_chars))
+    cols = np.arange(encoder.n_terms) if bigrams else np.array(
+        [i for i, t in enumerate(encoder.terms_) if " " not in t], dtype=np.int64)
+    enc.terms_ = [encoder.terms_[i] for i in cols]
+    enc.vocabulary_ = {t: i for i, t in enumerate(enc.terms_)}
+    if fields:
+        enc.levels_, enc.level_index_, enc.edges_ = encoder.levels_, encoder.level_index_, encoder.edges_
+    X = batch.X[:, cols] if not bigrams else batch.X
+    codes = batch.codes if fields else batch.codes[:, :0]
+    return enc, EncodedBatch(X.tocsr(), codes)
+
+
+def run_grid(ws: Workspace, folds: int = 5, progress: Any = None) -> list[GridRow]:
+    """Cross-validate every setting of the grid on the labelled items; best first."""
+    say = progress or (lambda _s, _f: None)
+    recs = ws._labelled()
+    items = [r.fields for r in recs]
+    labels = [r.label or "" for r in recs]
+    base = spec_from_config(ws.config)
+    enc = Encoder(ws.config.schema, Tokenizer(bigrams=True, max_token_chars=base.max_token_chars),
+                  min_count=base.min_count, max_vocab=base.max_vocab).fit(items)
+    batch = enc.transform(items)
+    rows: list[GridRow] = []
+    combos = [(m, a, b, f) for m in TEXT_MODELS for a in ALPHAS for b in (False, True) for f in (True, False)]
+    for k, (model, alpha, bigrams, use_fields) in enumerate(combos):
+        say(f"setting {k + 1}/{len(combos)}: {model} a={alpha} bigrams={bigrams} fields={use_fields}",
+            k / len(combos))
+        e, bt = _restrict(enc, batch, bigrams, use_fields)
+        spec = replace(base, text_model=model, alpha_text=alpha, bigrams=bigrams)
+        jll, queues = out_of_fold_jll(e, bt, labels, spec, folds=folds)
+        acc, f1, ll = score_jll(jll, queues, labels)
+        rows.append(GridRow(model, alpha, bigrams, use_fields, acc, f1, ll,
+                            _coverage(ws, jll, queues, labels)))
+    say("done", 1.0)
+    return sorted(rows, key=lambda r: (-r.coverage, -r.macro_f1))
+
+
+def _coverage(ws: Workspace, jll: np.ndarray, queues: list[str], labels: list[str]) -> float:
+    qi = {q: i for i, q in enumerate(queues)}
+    y = np.array([qi[lab] for lab in labels])
+    probs = TemperatureScaler().fit(jll, y).transform(jll)
+    top = probs.argmax(axis=1)
+    conf = probs[np.arange(len(y)), top]
+    routed = 0
+    for q, i in qi.items():
+        if q in ws.config.never_auto():
+            continue
+        mine = top == i
+        choice = solve_cutoff(conf[mine], top[mine] == y[mine], ws.config.policy(q).target_precision)
+        routed += choice.routed
+    return routed / len(y)
+
+
+def adopt(ws: Workspace, row: GridRow) -> None:
+    """Write a grid row's text settings into triage.toml (fields on/off is reported, not a config setting)."""
+    from triage.config import dump_config
+    from triage.workspace import CONFIG_NAME
+
+    ws.config.model.text_model = row.text_model
+    ws.config.model.alpha_text = row.alpha_text
+    ws.config.model.bigrams = row.bigrams
+    (ws.root / CONFIG_NAME).write_text(dump_config(ws.config), encoding="utf-8")
+
+
+def lift_for(ws: Workspace, queue: str) -> dict[str, Any]:
+    """Lift and cumulative gains by decile of one queue's calibrated probability, on the held-out newest items."""
+    meas = ws.evaluate()
+    if queue not in meas.model_queues:
+        raise ValueError(f"queue {queue!r} is not one of the model's queues ({', '.join(meas.model_queues)})")
+    assert meas.holdout_probs is not None
+    scores = meas.holdout_probs[:, meas.model_queues.index(queue)]
+    positive = np.array([lab == queue for lab in meas.holdout_labels])
+    return {"queue": queue, "items": len(scores), "positives": int(positive.sum()),
+            "deciles": lift_table(scores, positive, 10),
+            "captured_top_10": captured_share(scores, positive, 0.10),
+            "captured_top_20": captured_share(scores, positive, 0.20)}
+
+
+def independence(ws: Workspace, top_terms: int = 15) -> list[dict[str, Any]]:
+    """Conditional mutual information given the queue for field pairs and field x top-term pairs, from counts."""
+    model = ws.model
+    if model is None:
+        raise ValueError("no model yet; run `triage train` first")
+    recs = ws._labelled()
+    batch = model.encoder.transform([r.fields for r in recs], allow_missing=True)
+    qi = {q: i for i, q in enumerate(model.queues)}
+    y = np.array([qi.get(r.label or "", -1) for r in recs])
+    keep = y >= 0
+    y, codes, X = y[keep], batch.codes[keep], batch.X[keep]
+    fields = list(model.encoder.schema.value_fields)
+    Q = len(model.queues)
+    columns: list[tuple[str, np.ndarray]] = [(f.name, codes[:, k]) for k, f in enumerate(fields)]
+    df_total = model.counts.doc_freq_.sum(axis=0)
+    for j in np.argsort(-df_total)[:top_terms]:
+        present = (np.asarray(X[:, j].todense()).ravel() > 0).astype(np.int64)
+        columns.append((f"word '{model.encoder.terms_[j]}'", present))
+    out = []
+    for a in range(len(columns)):
+        for b in range(a + 1, len(columns)):
+            if a >= len(fields) and b >= len(fields):
+                continue  # word x word pairs are the text model's own assumption; not listed
+            (na, va), (nb, vb) = columns[a], columns[b]
+            table = np.zeros((Q, va.max() + 1, vb.max() + 1))
+            np.add.at(table, (y, va, vb), 1.0)
+            cmi = conditional_mutual_information(table)
+            out.append({"a": na, "b": nb, "cmi_nats": cmi, "flagged": bool(cmi > CMI_FLAG)})
+    return sorted(out, key=lambda r: -r["cmi_nats"])
