@@ -656,7 +656,8 @@ OPENAPI: dict[str, Any] = {
                     "feature": {"type": "string"},
                     "weight": {"type": "number",
                                "description": "Log-likelihood-ratio for the suggested queue over the runner-up"},
-                    "kind": {"type": "string", "description": "token, field or prior"},
+                    "kind": {"type": "string", "enum": ["prior", "token", "field", "absent"],
+                             "description": "prior, token, field or absent (a word the item lacks; Bernoulli)"},
                 },
             },
             "Decision": {
