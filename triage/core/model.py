@@ -159,7 +159,9 @@ class NaiveBayes:
                     self.A_, self.B_ = -log_comp, log_s
                 else:
                     self.A_, self.B_ = log_comp, -log_s
-                    self.scale_ = 1.0 / (log_comp.sum(axis=1) - V * log_s)
+                    # one-word vocabulary: every weight is log 1 = 0 and the norm 0; the word carries no evidence
+                    norm = log_comp.sum(axis=1) - V * log_s
+                    self.scale_ = np.divide(1.0, norm, out=np.zeros_like(norm), where=norm != 0)
         if V == 0:  # no vocabulary (e.g. a schema without text fields): the text part is 0 for every queue
             self.A_, self.B_, self.C_, self.scale_ = np.zeros((Q, 0)), np.zeros(Q), np.zeros(Q), np.ones(Q)
         for name in ("A_", "B_", "C_", "scale_"):
