@@ -27,6 +27,14 @@ _TOKEN = regex.compile(
     r"|[\p{L}\p{M}\p{N}]+(?:[\-/][\p{L}\p{M}\p{N}]+)*",
     regex.VERSION1,
 )
+# The same pattern without the link and e-mail branches, which cannot match in a text holding none of "://",
+# "www." and "@": on such texts (most of them) findall gives the same tokens, without trying those branches
+# at every word.
+_TOKEN_PLAIN = regex.compile(
+    r"\p{N}+(?:[.,]\p{N}+)+"
+    r"|[\p{L}\p{M}\p{N}]+(?:[\-/][\p{L}\p{M}\p{N}]+)*",
+    regex.VERSION1,
+)
 _NUMERIC = regex.compile(r"[\d.,]+")
 _LONG_ID_DIGITS = 6  # a run of this many digits reads as an account/order number, not a quantity
 
@@ -49,13 +57,15 @@ class Tokenizer:
         text = unicodedata.normalize("NFKC", text).casefold()
         out: list[str] = []
         cap = self.max_token_chars
-        for tok in _TOKEN.findall(text):
-            if tok[0] == "h" and tok.startswith(("http://", "https://")) or tok.startswith("www."):
-                out.append(URL)
+        plain = "@" not in text and "://" not in text and "www." not in text
+        append = out.append
+        for tok in (_TOKEN_PLAIN if plain else _TOKEN).findall(text):
+            if tok.isalpha():  # the common case first: a word of letters is never a link or an address
+                append(tok[:cap])
+            elif tok.startswith(("http://", "https://", "www.")):
+                append(URL)
             elif "@" in tok:
-                out.append(EMAIL)
-            elif tok.isalpha():
-                out.append(tok[:cap])
+                append(EMAIL)
             else:
                 out.extend(_classify(tok, cap))
         return out
