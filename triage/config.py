@@ -42,6 +42,9 @@ class QueuePolicy:
     target_precision: float = DEFAULT_TARGET_PRECISION
     never_auto: bool = False  # every item predicted here is held for a human, whatever the confidence
     cutoff: float | None = None  # a fixed cutoff; None means: solved from held-out precision
+    # words (prefixes, e.g. "burn" for burning/burnt) that hold any item mentioning them for a person,
+    # whatever the model says: a rule-based safeguard for never-auto queues
+    watch_words: tuple[str, ...] = ()
 
 
 @dataclass
@@ -58,6 +61,9 @@ class Config:
 
     def never_auto(self) -> frozenset[str]:
         return frozenset(q for q, p in self.queues.items() if p.never_auto)
+
+    def watch_words(self) -> dict[str, tuple[str, ...]]:
+        return {q: p.watch_words for q, p in self.queues.items() if p.watch_words}
 
     def policy(self, queue: str) -> QueuePolicy:
         """The queue's routing rules; queues not named in the file get the defaults."""
@@ -127,10 +133,14 @@ def config_from_dict(data: dict[str, Any], path: Path | str = "triage.toml") -> 
         if not qname.strip():
             raise _fail(path, "queues", "a queue name is empty")
         cutoff = q.get("cutoff")
+        words = q.get("watch_words", [])
+        if not isinstance(words, list) or not all(isinstance(w, str) and w.strip() for w in words):
+            raise _fail(path, f"queues.{qname}.watch_words", "must be a list of non-empty words")
         queues[qname] = QueuePolicy(
             target_precision=float(q.get("target_precision", target)),
             never_auto=bool(q.get("never_auto", False)),
             cutoff=None if cutoff is None else float(cutoff),
+            watch_words=tuple(w.strip().casefold() for w in words),
         )
     return Config(
         schema=schema,
@@ -197,5 +207,7 @@ def dump_config(cfg: Config, comments: dict[str, str] | None = None) -> str:
         out.append(f"never_auto = {_toml_value(q.never_auto)}")
         if q.cutoff is not None:
             out.append(f"cutoff = {q.cutoff!r}")
+        if q.watch_words:
+            out.append("watch_words = [" + ", ".join(_toml_value(w) for w in q.watch_words) + "]")
         out.append("")
     return "\n".join(out)

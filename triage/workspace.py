@@ -28,7 +28,7 @@ from triage.core.encode import Encoder
 from triage.core.evidence import explain as explain_item
 from triage.core.metrics import Scorecard, population_stability_index, scorecard, solve_cutoff
 from triage.core.model import ModelSpec, NaiveBayes
-from triage.core.routing import HELD_WATCH, RoutingPolicy, decide
+from triage.core.routing import HELD_WATCH, HELD_WORD, RoutingPolicy, decide, watch_hits
 from triage.core.selection import fit_rows, out_of_fold_jll, quick_grid, select
 from triage.core.tokens import Tokenizer
 from triage.ingest import IngestResult, read_items
@@ -70,13 +70,15 @@ class Measurement:
     holdout_labels: list[str] = field(default_factory=list)
     holdout_probs: np.ndarray | None = None  # (n, len(model_queues)) calibrated probabilities
     model_queues: list[str] = field(default_factory=list)
+    holdout_hits: list[list[str]] | None = None  # watch-word hits per held-out row
 
     def rescore(self, cutoffs: dict[str, float | None]) -> Scorecard:
         """The scorecard of the same held-out rows under other cutoffs (what-if for the cutoff keys in the UI)."""
         assert self.holdout_probs is not None
-        verdicts = decide(self.holdout_probs, self.model_queues, replace(self.policy, cutoffs=cutoffs))
-        return scorecard(self.holdout_labels, [v.suggested for v in verdicts],
-                         np.array([v.confidence for v in verdicts]), self.scorecard.queues, cutoffs,
+        verdicts = decide(self.holdout_probs, self.model_queues, replace(self.policy, cutoffs=cutoffs),
+                          self.holdout_hits)
+        return scorecard(self.holdout_labels, [v.suggested for v in verdicts], _scored_confidence(verdicts),
+                         self.scorecard.queues, cutoffs,
                          never_auto=self.policy.never_auto,
                          targets={q.queue: q.target for q in self.scorecard.per_queue})
 
@@ -299,15 +301,16 @@ class Workspace:
         model = fit_rows(enc, batch, labels, np.arange(len(labels)), spec, queues)
         hold_batch = enc.transform([r.fields for r in newer], allow_missing=True)
         probs = policy.calibrated(model.joint_log_likelihood(hold_batch))
-        verdicts = decide(probs, model.queues, policy)
+        hits = self._hits(enc.tokenizer, newer)
+        verdicts = decide(probs, model.queues, policy, hits)
         all_queues = sorted(set(queues) | {r.label for r in newer if r.label})
-        card = scorecard([r.label for r in newer], [v.suggested for v in verdicts],
-                         np.array([v.confidence for v in verdicts]), all_queues, cutoffs, never_auto=never,
+        card = scorecard([r.label for r in newer], [v.suggested for v in verdicts], _scored_confidence(verdicts),
+                         all_queues, cutoffs, never_auto=never,
                          targets={q: self.config.policy(q).target_precision for q in all_queues})
         split = {"kind": "time", "train_items": len(older), "test_items": len(newer),
                  "test_from": newer[0].arrived_at, "test_to": newer[-1].arrived_at}
         return Measurement(spec, policy, card, calibration, cutoff_info, split, [r.item_id for r in newer],
-                           [r.label or "" for r in newer], probs, list(model.queues))
+                           [r.label or "" for r in newer], probs, list(model.queues), hits)
 
     def train(self, *, progress: Progress | None = None, cancel: Callable[[], bool] | None = None,
               note: str = "") -> TrainReport:
@@ -394,7 +397,7 @@ class Workspace:
             "needs_person": verdict.held,
             # never_auto: the top queue is one a person must always see; watch: such a queue has a real chance
             "flag": "never_auto" if verdict.suggested in active.policy.never_auto
-            else ("watch" if verdict.reason.startswith(HELD_WATCH) else None),
+            else ("watch" if verdict.reason.startswith((HELD_WATCH, HELD_WORD)) else None),
             "evidence": [{"feature": t.feature, "weight": round(t.weight, 4), "kind": t.kind} for t in terms],
             "unseen_words": list(enc.unknown_tokens[:20]),
             "model_version": active.version.version,
@@ -408,8 +411,16 @@ class Workspace:
                 return []
             batch = active.model.encoder.transform([r.fields for r in records], allow_missing=True)
             probs = active.policy.calibrated(active.model.joint_log_likelihood(batch))
-            verdicts = decide(probs, active.model.queues, active.policy)
+            verdicts = decide(probs, active.model.queues, active.policy, self._hits(active.model.encoder.tokenizer, records))
             return [self._decision(active, r, p, v) for r, p, v in zip(records, probs, verdicts, strict=True)]
+
+    def _hits(self, tok: Tokenizer, records: Sequence[ItemRecord]) -> list[list[str]] | None:
+        """Watch-word hits per item (None when no queue has watch words)."""
+        watch = self.config.watch_words()
+        if not watch:
+            return None
+        texts = [f.name for f in self.config.schema.text_fields]
+        return [watch_hits([w for name in texts for w in tok.words(r.fields.get(name))], watch) for r in records]
 
     def route_records(self, records: Sequence[ItemRecord], source: str) -> tuple[list[dict[str, Any]], int]:
         """Decide, store the items (so they can be corrected later) and the decisions; returns (decisions, batch)."""
@@ -463,7 +474,7 @@ class Workspace:
             enc = active.model.encoder.encode(rec.fields, allow_missing=True)
             jll = active.model.joint_log_likelihood_one(enc)
             probs = active.policy.calibrated(jll)
-            verdict = decide(probs, active.model.queues, active.policy)[0]
+            verdict = decide(probs, active.model.queues, active.policy, self._hits(active.model.encoder.tokenizer, [rec]))[0]
             ev = explain_item(active.model, enc, verdict.top_index, verdict.runner_up_index)
         return {
             "id": item_id, "label": rec.label, "fields": rec.fields, "queue": verdict.queue,
@@ -601,6 +612,13 @@ class Workspace:
             "never_auto": sorted(self.config.never_auto()),
             "latest_batch": {"id": batch.id, "source": batch.source, **batch.summary} if batch else None,
         }
+
+
+def _scored_confidence(verdicts: Sequence[Any]) -> np.ndarray:
+    """Confidences for the scorecard; an item held by a safeguard (watch word or watch probability) scores -1,
+    below every cutoff, so the scorecard's own cutoff rule counts it as held, as routing did."""
+    return np.array([-1.0 if v.held and v.reason.startswith((HELD_WATCH, HELD_WORD)) else v.confidence
+                     for v in verdicts])
 
 
 def _summary(card: dict[str, Any]) -> dict[str, Any]:

@@ -9,7 +9,7 @@ mentions smoke costs far more than a second look.
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -20,6 +20,7 @@ HELD_BELOW_CUTOFF = "below cutoff"
 HELD_NEVER_AUTO = "never auto-routed: a person reviews every item here"
 HELD_NO_CUTOFF = "no cutoff meets this queue's target precision yet"
 HELD_WATCH = "may belong to a never-auto queue"
+HELD_WORD = "mentions a watch word of"
 
 
 @dataclass(frozen=True)
@@ -67,13 +68,25 @@ class Verdict:
     runner_up_index: int
 
 
-def decide(probs: np.ndarray, queues: list[str], policy: RoutingPolicy) -> list[Verdict]:
-    """One verdict per row of calibrated probabilities."""
+def watch_hits(words: Sequence[str], watch_words: Mapping[str, Sequence[str]]) -> list[str]:
+    """'queue: word' for every watch word (a prefix) that one of the item's words starts with."""
+    hits = []
+    for queue, prefixes in watch_words.items():
+        for w in prefixes:
+            if any(tok.startswith(w) for tok in words):
+                hits.append(f"{queue}: {w}")
+    return hits
+
+
+def decide(probs: np.ndarray, queues: list[str], policy: RoutingPolicy,
+           hits: Sequence[Sequence[str]] | None = None) -> list[Verdict]:
+    """One verdict per row of calibrated probabilities; `hits` are each item's watch-word hits (see watch_hits)."""
     probs = np.atleast_2d(probs)
     order = np.argsort(-probs, axis=1, kind="stable")
     watch_idx = [i for i, q in enumerate(queues) if q in policy.never_auto]
     out: list[Verdict] = []
-    for row, p in zip(order, probs, strict=True):
+    for n, (row, p) in enumerate(zip(order, probs, strict=True)):
+        words = hits[n] if hits is not None else ()
         a = int(row[0])
         b = int(row[1]) if len(row) > 1 else a
         top, conf = queues[a], float(p[a])
@@ -81,6 +94,8 @@ def decide(probs: np.ndarray, queues: list[str], policy: RoutingPolicy) -> list[
         watched = [queues[i] for i in watch_idx if i != a and p[i] >= policy.watch_probability]
         if top in policy.never_auto:
             held, reason = True, HELD_NEVER_AUTO
+        elif words:
+            held, reason = True, f"{HELD_WORD} {', '.join(words)}"
         elif watched:
             held, reason = True, f"{HELD_WATCH} ({', '.join(watched)})"
         elif cut is None:
