@@ -144,3 +144,20 @@ def test_terms_sum_to_the_gap(train, probes, text_model, alpha, data) -> None:
         assert kinds.count("prior") == 1 and kinds.count("field") == len(SCHEMA.value_fields)
         if text_model != "bernoulli":
             assert kinds.count("token") == item.token_ids.size
+
+
+def test_one_word_vocabulary_complement_norm() -> None:
+    """With one word every normalised complement weight is log 1 / 0 (scikit-learn's ComplementNB(norm=True)
+    gives NaN here); the word carries no evidence, so the posterior is the prior and the terms still add up."""
+    schema = Schema(fields=(FieldSpec("body", FieldRole.TEXT),), id="id", label="queue")
+    items = [{"body": ""}, {"body": ""}, {"body": "battery"}]
+    model = NaiveBayes.fit(schema, items, ["billing", "fault", "billing"],
+                           ModelSpec(text_model="complement-norm", alpha_text=0.1))
+    assert model.encoder.n_terms == 1
+    for probe in ({}, {"body": "battery battery"}):
+        item = model.encoder.encode(probe, allow_missing=True)
+        post = model.predict_proba(model.encoder.transform([probe], allow_missing=True))[0]
+        np.testing.assert_allclose(post, [2 / 3, 1 / 3], atol=1e-12)
+        ev = explain(model, item)
+        assert ev.gap == pytest.approx(math.log(2), abs=1e-12)
+        assert ev.total() == pytest.approx(ev.gap, abs=1e-12)
