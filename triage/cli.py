@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 import sys
 from collections.abc import Callable, Sequence
 from pathlib import Path
@@ -570,6 +571,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         err.print("interrupted")
         return 130
+    except BrokenPipeError:
+        # the reader went away (`triage route FILE | head`): stop quietly, as Unix tools do
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 1
 
 
 if __name__ == "__main__":  # pragma: no cover
