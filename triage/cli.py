@@ -180,9 +180,10 @@ def _report_import(rep: Any, as_json: bool) -> None:
     out.print(f"{r.path}: {r.rows_read} rows read, {rep.added} new items, {rep.unchanged} already stored, "
               f"{len(r.rejects)} rejected, {len(rep.conflicts)} conflicts (stored labels kept).")
     for w in r.warnings[:25]:
-        err.print(f"warning: {w}")
+        err.print(f"warning: {w}", markup=False, soft_wrap=True)
     for c in rep.conflicts[:10]:
-        err.print(f"conflict: item {c.item_id}: stored {c.kind} {c.stored!r}, file says {c.incoming!r}; kept stored")
+        err.print(f"conflict: item {c.item_id}: stored {c.kind} {c.stored!r}, file says {c.incoming!r}; kept stored",
+                  markup=False, soft_wrap=True)
     if r.rejects_path:
         out.print(f"Rejected rows, with row numbers and reasons: {r.rejects_path}")
 
@@ -263,12 +264,12 @@ def cmd_route(args: argparse.Namespace) -> int:
             for r in read_jsonl_stream(sys.stdin, ws.config.schema, max_text_chars=ws.config.max_text_chars):
                 (rejects if not hasattr(r, "item_id") else records).append(r)
             for rj in rejects:
-                err.print(describe_reject("<stdin>", rj))
+                err.print(describe_reject("<stdin>", rj), markup=False, soft_wrap=True)
             decisions, batch = ws.route_records(records, source="<stdin>")
         else:
             decisions, result, batch = ws.route_file(args.file)
             for w in result.warnings[:25]:
-                err.print(f"warning: {w}")
+                err.print(f"warning: {w}", markup=False, soft_wrap=True)
         if args.json or not sys.stdout.isatty():
             for d in decisions:
                 sys.stdout.write(json.dumps(d, ensure_ascii=False) + "\n")
