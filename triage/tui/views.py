@@ -194,7 +194,7 @@ class ModelsView(View):
 
     @property
     def training(self) -> bool:
-        return any(w.is_running for w in self.app.workers if w.group == "train")
+        return any(w.state in (WorkerState.PENDING, WorkerState.RUNNING) for w in self.app.workers if w.group == "train")
 
     def action_cancel_training(self) -> None:
         if not self.training:

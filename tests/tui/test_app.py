@@ -1,0 +1,438 @@
+"""The terminal UI driven with Textual's pilot over a real demo workspace (no mocks).
+
+Each test checks the screen and, where something changes, the store and the model behind it.
+"""
+
+from __future__ import annotations
+
+import asyncio
+import html
+import re
+import subprocess
+import sys
+from io import StringIO
+from pathlib import Path
+
+import numpy as np
+from rich.console import Console
+from textual import events
+from textual.widgets import DataTable, Static
+
+from triage.tui.app import TriageApp, make_app
+from triage.tui.views import (
+    FieldsView,
+    IncomingView,
+    ItemDetail,
+    ModelsView,
+    ReviewView,
+    ScorecardView,
+)
+from triage.tui.widgets import ConfirmScreen, HelpScreen, QueuePicker, marked_text, shade
+from triage.workspace import Workspace
+
+SIZE = (100, 32)
+ROOT = Path(__file__).resolve().parents[2]
+
+
+def screen_text(app: TriageApp) -> str:
+    """The screen as plain text (the exported SVG without its markup)."""
+    svg = app.export_screenshot(simplify=True)
+    body = svg[svg.find("<g class"):] if "<g class" in svg else svg
+    return html.unescape(re.sub(r"<[^>]+>", "", body)).replace("\xa0", " ")
+
+
+def text_of(widget: Static) -> str:
+    console = Console(width=200, file=StringIO(), color_system=None)
+    console.print(widget.content)
+    return console.file.getvalue()  # type: ignore[attr-defined]
+
+
+async def settle(app: TriageApp, pilot) -> None:  # noqa: ANN001 - the pilot's type is generic
+    """Wait for every worker, then for the messages they posted."""
+    await pilot.pause()
+    await app.workers.wait_for_complete()
+    await pilot.pause()
+    await app.workers.wait_for_complete()
+    await pilot.pause()
+
+
+def run(coro_fn, workspace_path: Path, size: tuple[int, int] = SIZE):  # noqa: ANN001, ANN201
+    async def inner():  # noqa: ANN202
+        app = make_app(workspace_path)
+        try:
+            async with app.run_test(size=size) as pilot:
+                await settle(app, pilot)
+                return await coro_fn(app, pilot)
+        finally:
+            app.ws.close()
+
+    return asyncio.run(inner())
+
+
+def test_every_view_shows_the_workspace(workspace_path: Path) -> None:
+    async def go(app: TriageApp, pilot) -> None:  # noqa: ANN001
+        ws = app.ws
+        overview = text_of(app.query_one("#overview-model", Static))
+        assert f"version {ws.active_version.version}" in overview
+        assert "never-auto queue (safety)" in text_of(app.query_one("#overview-warning", Static))
+        assert "queue-mix PSI" in text_of(app.query_one("#overview-batch", Static))
+
+        await pilot.press("2")
+        await settle(app, pilot)
+        models = app.query_one("#models-table", DataTable)
+        assert models.row_count == len(ws.models()) == 1
+        assert "active" in str(models.get_row_at(0)[0])
+
+        await pilot.press("3")
+        await settle(app, pilot)
+        sv = app.query_one(ScorecardView)
+        assert sv.holdout is not None
+        assert app.query_one("#queue-table", DataTable).row_count == len(sv.card.queues)
+        # the per-item re-scoring reproduces the stored scorecard of the active version exactly
+        stored = ws.active_version.scorecard
+        assert sv.card.n == stored["n"]
+        assert sv.card.matrix == stored["matrix"]
+        assert abs(sv.card.coverage - stored["coverage"]) < 1e-12
+        assert abs(sv.card.auto_precision - stored["auto_precision"]) < 1e-12
+        assert "true \\ sugg." in text_of(app.query_one("#score-matrix", Static))
+
+        await pilot.press("4")
+        await settle(app, pilot)
+        incoming = app.query_one("#incoming-table", DataTable)
+        batch = ws.store.latest_batch()
+        assert incoming.row_count == min(200, batch.n_items)
+        first = ws.store.decisions(batch_id=batch.id, limit=1)[0]
+        assert incoming.coordinate_to_cell_key((0, 0)).row_key.value == first.item_id
+        detail = app.query_one("#incoming-detail", ItemDetail)
+        assert detail.explanation is not None and detail.explanation["id"] == first.item_id
+
+        await pilot.press("5")
+        await settle(app, pilot)
+        rv = app.query_one(ReviewView)
+        assert app.query_one("#review-table", DataTable).row_count == len(rv.items) > 0
+        for w in rv.items:
+            if w.why != "likely misroute":
+                assert ws.store.get_item(w.item_id).label is None
+            else:
+                assert ws.store.get_item(w.item_id).label not in (None, w.suggested)
+
+        await pilot.press("6")
+        await settle(app, pilot)
+        counts = app.query_one("#field-counts", DataTable)
+        f = ws.model.encoder.schema.value_fields[0]
+        labels = ws.model.encoder.field_labels(f)
+        assert len(counts.columns) == len(labels) + 1
+        table = ws.model.counts.field_count_[0]
+        for i in range(len(ws.model.queues)):
+            row = counts.get_row_at(i)
+            assert [int(v) for v in row[1:]] == [int(v) for v in table[i]] + [0] * (len(labels) - table.shape[1])
+        probs = app.query_one("#field-probs", DataTable)
+        p = float(str(probs.get_row_at(0)[1])[:5])
+        assert abs(p - float(np.exp(ws.model.field_log_[0][0, 0]))) < 5e-4
+
+    run(go, workspace_path)
+
+
+def test_review_lists_never_auto_items_for_a_person(workspace_path: Path) -> None:
+    async def go(app: TriageApp, pilot) -> None:  # noqa: ANN001
+        await pilot.press("5")
+        await settle(app, pilot)
+        rv = app.query_one(ReviewView)
+        batch = app.ws.store.latest_batch()
+        safety = {d.item_id for d in app.ws.store.decisions(batch_id=batch.id, limit=10_000)
+                  if d.suggested == "safety"}
+        assert safety, "the demo batch has items suggested for safety"
+        person = [w.item_id for w in rv.items if w.why == "person must review"]
+        assert set(person) == safety
+        assert [w.why for w in rv.items[: len(person)]] == ["person must review"] * len(person)
+
+    run(go, workspace_path)
+
+
+def test_changing_a_cutoff_moves_precision_and_coverage(workspace_path: Path) -> None:
+    async def go(app: TriageApp, pilot) -> None:  # noqa: ANN001
+        await pilot.press("3")
+        await settle(app, pilot)
+        sv = app.query_one(ScorecardView)
+        table = app.query_one("#queue-table", DataTable)
+        queues = sv.card.queues
+        # the queue with a cutoff that routes the most: lowering it routes more items
+        q = max((s for s in sv.card.per_queue if s.cutoff is not None and not s.never_auto),
+                key=lambda s: s.routed).queue
+        table.move_cursor(row=queues.index(q))
+        await pilot.pause()
+        before = next(s for s in sv.card.per_queue if s.queue == q)
+        total_before = sv.card.coverage
+        for _ in range(10):
+            await pilot.press("minus")
+        await pilot.pause()
+        after = next(s for s in sv.card.per_queue if s.queue == q)
+        assert sv.cutoffs[q] == round(before.cutoff - 0.10, 4)
+        assert after.routed > before.routed
+        assert after.coverage > before.coverage
+        assert sv.card.coverage > total_before
+        assert after.precision != before.precision or after.routed != before.routed
+        row = table.get_row(q)
+        assert row[2] == f"{sv.cutoffs[q]:.2f}"
+        assert "what-if" in text_of(app.query_one("#score-summary", Static))
+        # raising it above every confidence routes nothing
+        for _ in range(100):
+            await pilot.press("plus")
+        await pilot.pause()
+        top = next(s for s in sv.card.per_queue if s.queue == q)
+        assert sv.cutoffs[q] == 1.0 and top.routed <= before.routed
+        # a never-auto queue does not move
+        table.move_cursor(row=queues.index("safety"))
+        await pilot.pause()
+        await pilot.press("plus")
+        await pilot.pause()
+        assert next(s for s in sv.card.per_queue if s.queue == "safety").routed == 0
+        assert sv.cutoffs.get("safety") is None
+        await pilot.press("r")
+        await pilot.pause()
+        assert abs(sv.card.coverage - total_before) < 1e-12
+        # nothing was saved: the workspace's policy is untouched
+        assert app.ws.policy.cutoff(q) == before.cutoff
+
+    run(go, workspace_path)
+
+
+def test_a_correction_in_review_is_learned_and_undone(workspace_path: Path) -> None:
+    async def go(app: TriageApp, pilot) -> None:  # noqa: ANN001
+        ws = app.ws
+        await pilot.press("5")
+        await settle(app, pilot)
+        rv = app.query_one(ReviewView)
+        table = app.query_one("#review-table", DataTable)
+        target = next(w for w in rv.items if w.why == "likely misroute")
+        table.move_cursor(row=[w.item_id for w in rv.items].index(target.item_id))
+        await pilot.pause()
+        version = ws.active_version.version
+        old = ws.store.get_item(target.item_id).label
+        queues = ws.model.queues
+        counts = ws.model.counts.class_count_.copy()
+        # send it to a queue picked in the picker: the suggested one is highlighted first
+        await pilot.press("s")
+        await pilot.pause()
+        assert isinstance(app.screen, QueuePicker)
+        await pilot.press("enter")
+        await settle(app, pilot)
+        assert ws.active_version.version == version + 1
+        assert ws.store.get_item(target.item_id).label == target.suggested != old
+        after = ws.model.counts.class_count_
+        assert after[queues.index(old)] == counts[queues.index(old)] - 1
+        assert after[queues.index(target.suggested)] == counts[queues.index(target.suggested)] + 1
+        assert target.item_id not in {w.item_id for w in rv.items}
+        assert f"{target.item_id} -> {target.suggested}" in ws.active_version.note
+        models = app.query_one("#models-table", DataTable)
+        assert models.row_count == len(ws.models()) == 2
+        overview = text_of(app.query_one("#overview-model", Static))
+        assert "1 since the last training" in overview
+        # the same workspace opened afresh sees the corrected model
+        with Workspace.open(ws.root) as again:
+            assert again.active_version.version == version + 1
+            assert again.store.get_item(target.item_id).label == target.suggested
+            assert np.array_equal(again.model.counts.class_count_, after)
+        # undo restores the label and the counts, as a new version
+        await pilot.press("u")
+        await settle(app, pilot)
+        assert ws.active_version.version == version + 2
+        assert ws.store.get_item(target.item_id).label == old
+        assert np.array_equal(ws.model.counts.class_count_, counts)
+        assert target.item_id in {w.item_id for w in rv.items}
+
+    run(go, workspace_path)
+
+
+def test_sending_a_never_auto_item_to_a_chosen_queue(workspace_path: Path) -> None:
+    async def go(app: TriageApp, pilot) -> None:  # noqa: ANN001
+        ws = app.ws
+        await pilot.press("5")
+        await settle(app, pilot)
+        rv = app.query_one(ReviewView)
+        w = rv.items[0]
+        assert w.why == "person must review" and w.suggested == "safety"
+        picked = "hardware_fault"
+        version = ws.active_version.version
+        n_before = ws.model.counts.class_count_[ws.model.queues.index(picked)]
+        await pilot.press("s")
+        await pilot.pause()
+        picker = app.screen
+        assert isinstance(picker, QueuePicker)
+        ol = picker.query_one("#queue-options")
+        ol.highlighted = picker.queues.index(picked)
+        await pilot.press("enter")
+        await settle(app, pilot)
+        assert ws.store.get_item(w.item_id).label == picked
+        assert ws.active_version.version == version + 1
+        assert ws.model.counts.class_count_[ws.model.queues.index(picked)] == n_before + 1
+        assert w.item_id not in {x.item_id for x in rv.items}
+        # escape in the picker sends nowhere
+        nxt = rv.items[0]
+        await pilot.press("s")
+        await pilot.pause()
+        await pilot.press("escape")
+        await settle(app, pilot)
+        assert ws.store.get_item(nxt.item_id).label is None
+        assert ws.active_version.version == version + 1
+
+    run(go, workspace_path)
+
+
+def test_cancelling_a_training_run_keeps_the_active_model(workspace_path: Path) -> None:
+    async def go(app: TriageApp, pilot) -> None:  # noqa: ANN001
+        ws = app.ws
+        before = ws.active_version.version
+        n_versions = len(ws.models())
+        await pilot.press("2")
+        await pilot.pause()
+        # both keys are queued at once: pilot.press would wait for the busy training thread to go idle first
+        for key in ("t", "x"):
+            app.post_message(events.Key(key, key))
+        await settle(app, pilot)
+        mv = app.query_one(ModelsView)
+        assert "cancelled" in mv.last_outcome
+        assert ws.active_version.version == before
+        assert len(ws.models()) == n_versions
+        assert ws.store.active_model().version == before
+
+    run(go, workspace_path)
+
+
+def test_training_then_activating_an_older_version(workspace_path: Path) -> None:
+    async def go(app: TriageApp, pilot) -> None:  # noqa: ANN001
+        ws = app.ws
+        await pilot.press("2")
+        await pilot.pause()
+        await pilot.press("t")
+        await settle(app, pilot)
+        mv = app.query_one(ModelsView)
+        assert "version 2 is active" in mv.last_outcome
+        assert ws.active_version.version == 2 and ws.store.active_model().version == 2
+        table = app.query_one("#models-table", DataTable)
+        assert table.row_count == 2
+        assert "active" in str(table.get_row("2")[0]) and "active" not in str(table.get_row("1")[0])
+        assert app.query_one("#train-progress").progress == 100
+        # activate version 1: refuse first, then confirm
+        table.move_cursor(row=table.get_row_index("1"))
+        await pilot.press("a")
+        await pilot.pause()
+        assert isinstance(app.screen, ConfirmScreen)
+        await pilot.press("n")
+        await pilot.pause()
+        assert ws.active_version.version == 2
+        await pilot.press("a")
+        await pilot.pause()
+        await pilot.press("y")
+        await settle(app, pilot)
+        assert ws.active_version.version == 1 and ws.store.active_model().version == 1
+        assert "active" in str(table.get_row("1")[0])
+
+    run(go, workspace_path)
+
+
+def test_incoming_pages_filters_and_search(workspace_path: Path) -> None:
+    async def go(app: TriageApp, pilot) -> None:  # noqa: ANN001
+        ws = app.ws
+        await pilot.press("4")
+        await settle(app, pilot)
+        iv = app.query_one(IncomingView)
+        table = app.query_one("#incoming-table", DataTable)
+        batch = ws.store.latest_batch()
+        assert batch.n_items == 300 and iv.pages == 2
+        await pilot.press("n")
+        await pilot.pause()
+        assert iv.page == 1 and table.row_count == 100
+        await pilot.press("n")
+        assert iv.page == 1
+        await pilot.press("p")
+        await pilot.pause()
+        assert iv.page == 0 and table.row_count == 200
+        # held only
+        await pilot.press("h")
+        await settle(app, pilot)
+        held = ws.store.decisions(batch_id=batch.id, held=True, limit=1000)
+        assert len(iv.rows) == len(held) and all(r.held for r in iv.rows)
+        # a queue
+        app.query_one("#incoming-queue").value = "billing"
+        await settle(app, pilot)
+        assert iv.rows and all(r.suggested == "billing" and r.held for r in iv.rows)
+        assert len(iv.rows) == sum(1 for d in held if d.suggested == "billing")
+        # text search over all queues and both held and routed
+        app.query_one("#incoming-queue").clear()
+        await pilot.press("h", "h")
+        await settle(app, pilot)
+        await pilot.press("slash")
+        await pilot.press(*"invoice", "enter")
+        await settle(app, pilot)
+        items = ws.store.get_items([r.item_id for r in iv.rows])
+        assert iv.rows and all("invoice" in " ".join(map(str, r.fields.values())).lower() for r in items)
+        every = ws.store.get_items([d.item_id for d in ws.store.decisions(batch_id=batch.id, limit=1000)])
+        assert len(iv.rows) == sum(1 for r in every if "invoice" in " ".join(map(str, r.fields.values())).lower())
+        detail = app.query_one("#incoming-detail", ItemDetail)
+        assert detail.explanation["id"] == iv.rows[0].item_id
+
+    run(go, workspace_path)
+
+
+def test_marked_text_reads_without_colour() -> None:
+    text = marked_text("Smoke from the battery, please help", {"smoke": 2.0, "please": -0.5})
+    assert text.plain == "[+Smoke] from the battery, [−please] help"
+    assert shade(0.0) == " " and shade(1.0) == "█" and shade(0.3) != shade(0.9)
+
+
+def test_help_and_command_palette(workspace_path: Path) -> None:
+    async def go(app: TriageApp, pilot) -> None:  # noqa: ANN001
+        await pilot.press("question_mark")
+        await pilot.pause()
+        assert isinstance(app.screen, HelpScreen)
+        keys = text_of(app.screen.query_one("#help-keys", Static))
+        assert "Raise the selected cutoff" in keys and "Pick the queue" in keys
+        await pilot.press("escape")
+        await pilot.pause()
+        assert not isinstance(app.screen, HelpScreen)
+        await pilot.press("ctrl+p")
+        await pilot.pause()
+        await pilot.press(*"show fields")
+        await pilot.pause(0.3)
+        await pilot.press("enter")
+        await settle(app, pilot)
+        assert app.query_one("TabbedContent").active == "fields"
+        assert app.query_one(FieldsView).query_one("#field-counts", DataTable).row_count == len(app.ws.model.queues)
+
+    run(go, workspace_path)
+
+
+def test_bindings_have_ids_and_tooltips() -> None:
+    from triage.tui.app import VIEWS
+
+    for cls in [TriageApp, *[v[2] for v in VIEWS]]:
+        for b in cls.BINDINGS:
+            assert b.id and b.tooltip, (cls.__name__, b.key)
+
+
+def test_readable_at_small_and_large_sizes(workspace_path: Path) -> None:
+    for size in ((80, 24), (160, 48)):
+        async def go(app: TriageApp, pilot) -> list[str]:  # noqa: ANN001
+            shots = []
+            for key in "123456":
+                await pilot.press(key)
+                await settle(app, pilot)
+                shots.append(screen_text(app))
+            return shots
+
+        shots = run(go, workspace_path, size=size)
+        for shot in shots:
+            for label in ("Overview", "Models", "Scorecard", "Incoming", "Review", "Fields", "Quit"):
+                assert label in shot, (size, label)
+        assert "never-auto" in shots[0] and "Train" in shots[1] and "Cutoff" in shots[2]
+        assert "Next page" in shots[3] and "Send to" in shots[4] and "unseen value" in shots[5]
+
+
+def test_core_and_workspace_do_not_import_textual() -> None:
+    code = ("import sys, triage.workspace, triage.store, triage.core.metrics, triage.core.model, "
+            "triage.core.routing, triage.core.selection, triage.core.evidence, triage.core.encode; "
+            "bad = sorted(m for m in sys.modules if m.split('.')[0] == 'textual' or m.startswith('triage.tui')); "
+            "assert not bad, bad")
+    result = subprocess.run([sys.executable, "-c", code], cwd=ROOT, capture_output=True, text=True)
+    assert result.returncode == 0, result.stderr
