@@ -14,6 +14,7 @@ bins, and a missing value has a bin of its own (the last code).
 from __future__ import annotations
 
 import math
+from array import array
 from collections import Counter
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
@@ -216,9 +217,10 @@ class Encoder:
 
     def transform(self, items: Sequence[Mapping[str, Any]], *, allow_missing: bool = False) -> EncodedBatch:
         """Encode many items into a sparse count matrix and a code matrix."""
-        indptr = [0]
-        indices: list[int] = []
-        data: list[float] = []
+        # typed buffers, not lists: 8 bytes a stored count instead of a list slot plus a boxed int or float
+        indptr = array("q", [0])
+        indices = array("q")
+        data = array("d")
         codes = np.empty((len(items), len(self.schema.value_fields)), dtype=np.int64)
         value_fields = self.schema.value_fields
         for i, item in enumerate(items):
@@ -229,7 +231,8 @@ class Encoder:
             for k, f in enumerate(value_fields):
                 codes[i, k] = self.code(f, self._get(item, f, allow_missing))
         X = sp.csr_matrix(
-            (np.asarray(data, dtype=np.float64), np.asarray(indices, dtype=np.int64), np.asarray(indptr)),
+            (np.frombuffer(data, dtype=np.float64), np.frombuffer(indices, dtype=np.int64),
+             np.frombuffer(indptr, dtype=np.int64)),
             shape=(len(items), self.n_terms),
         )
         X.sort_indices()
