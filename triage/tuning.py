@@ -66,8 +66,8 @@ def run_grid(ws: Workspace, folds: int = 5, progress: Any = None) -> list[GridRo
     labels = [r.label or "" for r in recs]
     base = spec_from_config(ws.config)
     enc = Encoder(ws.config.schema, Tokenizer(bigrams=True, max_token_chars=base.max_token_chars),
-                  min_count=base.min_count, max_vocab=base.max_vocab).fit(items)
-    batch = enc.transform(items)
+                  min_count=base.min_count, max_vocab=base.max_vocab)
+    batch = enc.fit_transform(items)
     rows: list[GridRow] = []
     combos = [(m, a, b, f) for m in TEXT_MODELS for a in ALPHAS for b in (False, True) for f in (True, False)]
     for k, (model, alpha, bigrams, use_fields) in enumerate(combos):

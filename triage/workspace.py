@@ -24,7 +24,7 @@ import numpy as np
 
 from triage.config import Config, ConfigError, dump_config, load_config
 from triage.core.calibrate import TemperatureScaler, expected_calibration_error, reliability_table
-from triage.core.encode import Encoder
+from triage.core.encode import EncodedBatch, Encoder
 from triage.core.evidence import explain as explain_item
 from triage.core.metrics import Scorecard, population_stability_index, scorecard, solve_cutoff
 from triage.core.model import ModelSpec, NaiveBayes
@@ -243,9 +243,11 @@ class Workspace:
             )
         return recs
 
-    def _encoder(self, spec: ModelSpec, items: Sequence[dict[str, Any]]) -> Encoder:
+    def _encode(self, spec: ModelSpec, items: Sequence[dict[str, Any]]) -> tuple[Encoder, EncodedBatch]:
+        """A fitted encoder and the items' batch, from one tokenisation pass."""
         tok = Tokenizer(bigrams=spec.bigrams, max_token_chars=spec.max_token_chars)
-        return Encoder(self.config.schema, tok, min_count=spec.min_count, max_vocab=spec.max_vocab).fit(items)
+        enc = Encoder(self.config.schema, tok, min_count=spec.min_count, max_vocab=spec.max_vocab)
+        return enc, enc.fit_transform(items)
 
     def measure(self, spec: ModelSpec, recs: Sequence[ItemRecord] | None = None,
                 progress: Progress | None = None) -> Measurement:
@@ -258,8 +260,7 @@ class Workspace:
         items = [r.fields for r in older]
         labels = [r.label or "" for r in older]
         say("tokenising", 0.1)
-        enc = self._encoder(spec, items)
-        batch = enc.transform(items)
+        enc, batch = self._encode(spec, items)
         say("calibrating on out-of-fold scores", 0.3)
         oof, queues = out_of_fold_jll(enc, batch, labels, spec, folds=5)
         qi = {q: i for i, q in enumerate(queues)}
@@ -334,8 +335,7 @@ class Workspace:
             n_hold = max(1, int(round(len(recs) * HOLDOUT_SHARE)))
             older = recs[: len(recs) - n_hold]
             items = [r.fields for r in older]
-            enc = self._encoder(base, items)
-            batch = enc.transform(items)
+            enc, batch = self._encode(base, items)
             check()
             say(f"comparing {len(specs)} settings by cross-validation", 0.05)
             best, scores = select(enc, batch, [r.label or "" for r in older], specs, folds=3)

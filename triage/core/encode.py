@@ -15,7 +15,6 @@ from __future__ import annotations
 
 import math
 from array import array
-from collections import Counter
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -105,16 +104,46 @@ class Encoder:
     # ----- fitting -------------------------------------------------------------------------------------------
     def fit(self, items: Sequence[Mapping[str, Any]]) -> Encoder:
         """Build the vocabulary (pruned by `min_count` total occurrences and `max_vocab`), levels and bin edges."""
-        counts: Counter[str] = Counter()
+        self.fit_transform(items)
+        return self
+
+    def fit_transform(self, items: Sequence[Mapping[str, Any]]) -> EncodedBatch:
+        """Fit and encode the training items in one tokenisation pass.
+
+        Tokens get provisional ids in order of first sight while the rows are counted; after pruning, the kept
+        terms are sorted and the stored entries renumbered (pruned ones dropped). The result equals
+        `fit(items)` followed by `transform(items)`, at about half the cost.
+        """
+        provisional: dict[str, int] = {}
+        occurrences: list[int] = []
+        indptr = array("q", [0])
+        indices = array("q")
+        data = array("d")
+        text_fields = self.schema.text_fields
+        tokens = self.tokenizer.tokens
         for item in items:
-            for f in self.schema.text_fields:
-                counts.update(self.tokenizer.tokens(self._get(item, f, False)))
-        kept = [(t, c) for t, c in counts.items() if c >= self.min_count]
-        kept.sort(key=lambda tc: (-tc[1], tc[0]))
-        if self.max_vocab is not None:
+            acc: dict[int, float] = {}
+            for f in text_fields:
+                w = f.weight
+                for tok in tokens(self._get(item, f, False)):
+                    j = provisional.get(tok)
+                    if j is None:
+                        j = provisional[tok] = len(occurrences)
+                        occurrences.append(0)
+                    occurrences[j] += 1
+                    acc[j] = acc.get(j, 0.0) + w
+            indices.extend(acc.keys())
+            data.extend(acc.values())
+            indptr.append(len(indices))
+        kept = [(t, occurrences[j]) for t, j in provisional.items() if occurrences[j] >= self.min_count]
+        if self.max_vocab is not None and len(kept) > self.max_vocab:
+            kept.sort(key=lambda tc: (-tc[1], tc[0]))
             kept = kept[: self.max_vocab]
         self.terms_ = sorted(t for t, _ in kept)
         self.vocabulary_ = {t: i for i, t in enumerate(self.terms_)}
+        remap = np.full(len(occurrences), -1, dtype=np.int64)
+        for t, i in self.vocabulary_.items():
+            remap[provisional[t]] = i
         for f in self.schema.value_fields:
             values = [self._get(item, f, False) for item in items]
             if f.role is FieldRole.CATEGORY:
@@ -123,7 +152,18 @@ class Encoder:
             else:
                 xs = np.array([x for v in values if (x := _number(v, f.name)) is not None], dtype=np.float64)
                 self.edges_[f.name] = _quantile_edges(xs, f.bins)
-        return self
+        cols = remap[np.frombuffer(indices, dtype=np.int64)] if len(indices) else np.empty(0, dtype=np.int64)
+        keep = cols >= 0
+        row_of = np.repeat(np.arange(len(items)), np.diff(np.frombuffer(indptr, dtype=np.int64)))
+        X = sp.csr_matrix((np.frombuffer(data, dtype=np.float64)[keep], (row_of[keep], cols[keep])),
+                          shape=(len(items), self.n_terms))
+        X.sort_indices()
+        codes = np.empty((len(items), len(self.schema.value_fields)), dtype=np.int64)
+        for k, f in enumerate(self.schema.value_fields):
+            code = self.code
+            for i, item in enumerate(items):
+                codes[i, k] = code(f, self._get(item, f, False))
+        return EncodedBatch(X, codes)
 
     def _set_levels(self, name: str, levels: list[str]) -> None:
         self.levels_[name] = levels

@@ -87,7 +87,8 @@ class NaiveBayes:
         spec = spec or ModelSpec()
         if encoder is None:
             tok = Tokenizer(bigrams=spec.bigrams, max_token_chars=spec.max_token_chars)
-            encoder = Encoder(schema, tok, min_count=spec.min_count, max_vocab=spec.max_vocab).fit(items)
+            encoder = Encoder(schema, tok, min_count=spec.min_count, max_vocab=spec.max_vocab)
+            batch = encoder.fit_transform(items)  # one tokenisation pass
         if batch is None:
             batch = encoder.transform(items)
         counts = CountTables([], encoder.n_terms, encoder_sizes(encoder))
