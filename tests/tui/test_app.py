@@ -227,7 +227,7 @@ def test_a_correction_in_review_is_learned_and_undone(workspace_path: Path) -> N
         models = app.query_one("#models-table", DataTable)
         assert models.row_count == len(ws.models()) == 2
         overview = text_of(app.query_one("#overview-model", Static))
-        assert "1 since the last training" in overview
+        assert "1 learned since training" in overview
         # the same workspace opened afresh sees the corrected model
         with Workspace.open(ws.root) as again:
             assert again.active_version.version == version + 1
@@ -425,8 +425,9 @@ def test_readable_at_small_and_large_sizes(workspace_path: Path) -> None:
         for shot in shots:
             for label in ("Overview", "Models", "Scorecard", "Incoming", "Review", "Fields", "Quit"):
                 assert label in shot, (size, label)
-        assert "never-auto" in shots[0] and "Train" in shots[1] and "Cutoff" in shots[2]
-        assert "Next page" in shots[3] and "Send to" in shots[4] and "unseen value" in shots[5]
+        for shot, label in zip(shots, ("never-auto", "Train", "Cutoff", "Next page", "Send to", "P(value | queue)"),
+                               strict=True):
+            assert label in shot, (size, label)
 
 
 def test_core_and_workspace_do_not_import_textual() -> None:

@@ -9,6 +9,7 @@ from collections.abc import Callable
 from functools import partial
 from pathlib import Path
 
+from textual import events
 from textual.app import App, ComposeResult
 from textual.binding import Binding
 from textual.command import DiscoveryHit, Hit, Hits, Provider
@@ -26,6 +27,8 @@ from triage.tui.views import (
 )
 from triage.tui.widgets import HelpScreen
 from triage.workspace import Workspace
+
+WIDE = 140
 
 VIEWS: list[tuple[str, str, type[View], str]] = [
     ("overview", "1 Overview", OverviewView, "items, queues, the active model, drift"),
@@ -77,7 +80,7 @@ class TriageApp(App[None]):
         *[Binding(str(i), f"show('{key}')", title[2:], show=False, id=f"show.{key}", tooltip=f"Show {help_}")
           for i, (key, title, _, help_) in enumerate(VIEWS, start=1)],
         Binding("question_mark,f1", "help", "Keys", id="app.help", tooltip="Every key of every view", key_display="?"),
-        Binding("ctrl+r", "reload", "Reload", id="app.reload", tooltip="Read the workspace again"),
+        Binding("ctrl+r", "reload", "Reload", show=False, id="app.reload", tooltip="Read the workspace again"),
         Binding("q", "quit", "Quit", id="app.quit", tooltip="Leave triage"),
     ]
 
@@ -92,10 +95,18 @@ class TriageApp(App[None]):
             for key, title, cls, _ in VIEWS:
                 with TabPane(title, id=key):
                     yield cls(self.ws, id=f"{key}-view")
-        yield Footer()
+        yield Footer(compact=True)
 
     def on_mount(self) -> None:
         self.call_after_refresh(self.view("overview").focus_main)
+        self._fit(self.size.width)
+
+    def on_resize(self, event: events.Resize) -> None:
+        self._fit(event.size.width)
+
+    def _fit(self, width: int) -> None:
+        """Wide terminals put panels side by side (the stylesheet keys on the `wide` class)."""
+        self.set_class(width >= WIDE, "wide")
 
     # ----- views -----
     def view(self, key: str) -> View:

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import threading
 from dataclasses import dataclass, field
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -17,7 +18,7 @@ from rich.text import Text
 from textual import work
 from textual.app import ComposeResult
 from textual.binding import Binding
-from textual.containers import Horizontal, VerticalScroll
+from textual.containers import Container, Horizontal, VerticalScroll
 from textual.widget import Widget
 from textual.widgets import DataTable, Input, Label, OptionList, ProgressBar, Select, Static
 from textual.widgets.option_list import Option
@@ -99,22 +100,22 @@ class OverviewView(View):
         m = Table.grid(padding=(0, 2))
         m.add_column(style="dim")
         m.add_column(style="bold")
-        m.add_row("items", f"{o['items']}  ({o['labelled']} labelled)")
+        m.add_row("items", f"{o['items']}, {o['labelled']} labelled")
         m.add_row("active model", f"version {o['active_version']}" if o["active_version"] else "none: press 2, t")
         m.add_row("text model", str(o["text_model"] or "—"))
         card = o["scorecard"] or {}
         m.add_row("accuracy", pct(card.get("accuracy")))
         m.add_row("coverage", pct(card.get("coverage")))
         m.add_row("auto precision", pct(card.get("auto_precision")))
-        m.add_row("scored on", f"{card.get('n', '—')} newest items (held out)")
-        m.add_row("corrections learned", f"{o['corrections_since_training']} since the last training")
+        m.add_row("scored on", f"{card.get('n', '—')} newest, held out")
+        m.add_row("corrections", f"{o['corrections_since_training']} learned since training")
         self.query_one("#overview-model", Static).update(Group(Text("model", style="bold underline"), m))
         b = Table.grid(padding=(0, 2))
         b.add_column(style="dim")
         b.add_column(style="bold")
         batch = o["latest_batch"]
         if batch:
-            b.add_row("batch", f"#{batch['id']} {batch['source']}")
+            b.add_row("batch", f"#{batch['id']} {Path(batch['source']).name}")
             b.add_row("routed / held", f"{batch['routed']} / {batch['held']}  (coverage {pct(batch['coverage'])})")
             unseen = batch["unseen_word_share"]
             b.add_row("unseen words", Text(f"{pct(unseen)}" + ("  ! many new words" if unseen > 0.1 else "  ok"),
@@ -329,8 +330,7 @@ class ScorecardView(View):
 
     def on_mount(self) -> None:
         t = self.query_one("#queue-table", DataTable)
-        t.add_columns("queue", "target", "cutoff", "precision", "recall", "F1", "coverage", "held", "routed",
-                      "support")
+        t.add_columns("queue", "target", "cutoff", "prec.", "recall", "F1", "cover.", "held", "routed", "supp.")
         self.reload()
 
     def reload(self) -> None:
@@ -502,8 +502,9 @@ class IncomingView(View):
                          value="all", allow_blank=False, id="incoming-held", compact=True)
             yield Input(placeholder="/ search text, enter applies", id="incoming-search", compact=True)
         yield Label("", id="incoming-status")
-        yield DataTable(id="incoming-table", cursor_type="row", zebra_stripes=True)
-        yield ItemDetail(self.ws, id="incoming-detail")
+        with Container(classes="split"):
+            yield DataTable(id="incoming-table", cursor_type="row", zebra_stripes=True)
+            yield ItemDetail(self.ws, id="incoming-detail")
 
     def on_mount(self) -> None:
         t = self.query_one("#incoming-table", DataTable)
@@ -688,8 +689,9 @@ class ReviewView(View):
 
     def compose(self) -> ComposeResult:
         yield Label("", id="review-status")
-        yield DataTable(id="review-table", cursor_type="row", zebra_stripes=True)
-        yield ItemDetail(self.ws, id="review-detail")
+        with Container(classes="split"):
+            yield DataTable(id="review-table", cursor_type="row", zebra_stripes=True)
+            yield ItemDetail(self.ws, id="review-detail")
 
     def on_mount(self) -> None:
         t = self.query_one("#review-table", DataTable)
@@ -807,7 +809,7 @@ class FieldsView(View):
         keep = ol.highlighted
         ol.clear_options()
         for f in self.ws.config.schema.value_fields:
-            ol.add_option(Option(f"{f.name} ({f.role.value})", id=f.name))
+            ol.add_option(Option(f.name, id=f.name))
         if ol.option_count:
             ol.highlighted = keep if keep is not None and keep < ol.option_count else 0
             self.show_field(ol.highlighted)
@@ -830,7 +832,7 @@ class FieldsView(View):
         counts = model.counts.field_count_[k]
         logp = model.field_log_[k]
         self.query_one("#field-title", Label).update(
-            f"{f.name}: items per value and queue (counts; alpha {model.spec.alpha_fields:g} smooths the "
+            f"{f.name} ({f.role.value}): items per value and queue (counts; alpha {model.spec.alpha_fields:g} smooths the "
             "probabilities below)")
         counts_t.add_column("queue", key="queue")
         probs_t.add_column("queue", key="queue")

@@ -76,8 +76,9 @@ def confusion_table(queues: Sequence[str], matrix: Sequence[Sequence[int]],
                     shares: Sequence[Sequence[float]]) -> Table:
     """Rows true queue, columns suggested queue; each cell: count, row share in %, shade character."""
     keys = short_names(queues)
-    t = Table(title="confusion matrix: rows true queue, columns suggested; cell = count  row-share shade",
-              title_justify="left", show_edge=False, pad_edge=False, padding=(0, 1), expand=False)
+    t = Table(title="confusion matrix: rows true, columns suggested\ncell: count, % of the row, shade",
+              title_justify="left", box=None, show_edge=False, pad_edge=False, padding=(0, 1), expand=False,
+              header_style="bold underline")
     t.add_column("true \\ sugg.", no_wrap=True)
     for k in keys:
         t.add_column(k, justify="right", no_wrap=True)
@@ -189,7 +190,8 @@ def text_plot(xs: Sequence[float], ys: Sequence[float], mark: tuple[float, float
             out.append(ch, style="bold yellow" if ch == "◆" else "cyan" if ch == "•" else "")
         out.append("\n")
     out.append("     └" + "─" * width + "\n")
-    out.append(f"      0{' ' * (width - 2)}1  {x_label} →   ↑ {y_label}   ◆ = current cutoff", style="dim")
+    out.append(f"      0{' ' * (width - 2)}1 {x_label}\n", style="dim")
+    out.append(f"      ↑ {y_label} · • each cutoff · ◆ the current one", style="dim")
     return out
 
 
