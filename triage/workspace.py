@@ -23,13 +23,25 @@ from typing import Any
 import numpy as np
 
 from triage.config import Config, ConfigError, dump_config, load_config
-from triage.core.calibrate import TemperatureScaler, expected_calibration_error, reliability_table
+from triage.core.calibrate import (
+    IsotonicCalibrator,
+    TemperatureScaler,
+    expected_calibration_error,
+    reliability_table,
+    softmax_rows,
+)
 from triage.core.encode import EncodedBatch, Encoder
 from triage.core.evidence import explain as explain_item
-from triage.core.metrics import Scorecard, population_stability_index, scorecard, solve_cutoff
+from triage.core.metrics import (
+    Scorecard,
+    population_stability_index,
+    precision_coverage_curve,
+    scorecard,
+    solve_cutoff,
+)
 from triage.core.model import ModelSpec, NaiveBayes
-from triage.core.routing import HELD_WATCH, HELD_WORD, RoutingPolicy, decide, watch_hits
-from triage.core.selection import fit_rows, out_of_fold_jll, quick_grid, select
+from triage.core.routing import HELD_WATCH, HELD_WORD, RoutingPolicy, Verdict, decide, watch_hits
+from triage.core.selection import fit_rows, n_folds_for, out_of_fold_jll, quick_grid, select, subset
 from triage.core.tokens import Tokenizer
 from triage.ingest import IngestResult, read_items
 from triage.records import ItemRecord
@@ -71,12 +83,48 @@ class Measurement:
     holdout_probs: np.ndarray | None = None  # (n, len(model_queues)) calibrated probabilities
     model_queues: list[str] = field(default_factory=list)
     holdout_hits: list[list[str]] | None = None  # watch-word hits per held-out row
+    # k-fold split only: the outer fold of each held-out row, and each fold's own policy (calibration, cutoffs)
+    holdout_folds: np.ndarray | None = None
+    fold_policies: list[RoutingPolicy] = field(default_factory=list)
+
+    def verdicts(self, cutoffs: dict[str, float | None] | None = None) -> list[Verdict]:
+        """The routing decisions on the held-out rows (a k-fold row under its own fold's policy); `cutoffs`
+        replaces every policy's cutoffs (what-if)."""
+        assert self.holdout_probs is not None
+
+        def pol(p: RoutingPolicy) -> RoutingPolicy:
+            return p if cutoffs is None else replace(p, cutoffs=cutoffs)
+
+        if self.holdout_folds is None:
+            return decide(self.holdout_probs, self.model_queues, pol(self.policy), self.holdout_hits)
+        out: list[Verdict | None] = [None] * len(self.holdout_labels)
+        for f, p in enumerate(self.fold_policies):
+            rows = np.flatnonzero(self.holdout_folds == f)
+            hits = [self.holdout_hits[i] for i in rows] if self.holdout_hits is not None else None
+            for i, v in zip(rows, decide(self.holdout_probs[rows], self.model_queues, pol(p), hits), strict=True):
+                out[i] = v
+        return [v for v in out if v is not None]
+
+    def precision_coverage(self, max_points: int = 50) -> dict[str, dict[str, list[float]]]:
+        """Per queue, the precision-coverage curve of the held-out rows suggested for it (for plots), thinned
+        to at most `max_points` cutoffs (the highest and the lowest always kept)."""
+        verdicts = self.verdicts()
+        conf = np.array([v.confidence for v in verdicts], dtype=float)
+        suggested = np.array([v.suggested for v in verdicts], dtype=object)
+        labels = np.array(self.holdout_labels, dtype=object)
+        out: dict[str, dict[str, list[float]]] = {}
+        for q in self.model_queues:
+            mine = suggested == q
+            cut, prec, cov, low = precision_coverage_curve(conf[mine], labels[mine] == q)
+            keep = np.unique(np.linspace(0, len(cut) - 1, min(len(cut), max_points)).round().astype(int)) \
+                if len(cut) else np.empty(0, dtype=int)
+            out[q] = {"cutoff": cut[keep].tolist(), "precision": prec[keep].tolist(),
+                      "coverage": cov[keep].tolist(), "lower_bound": low[keep].tolist()}
+        return out
 
     def rescore(self, cutoffs: dict[str, float | None]) -> Scorecard:
         """The scorecard of the same held-out rows under other cutoffs (what-if for the cutoff keys in the UI)."""
-        assert self.holdout_probs is not None
-        verdicts = decide(self.holdout_probs, self.model_queues, replace(self.policy, cutoffs=cutoffs),
-                          self.holdout_hits)
+        verdicts = self.verdicts(cutoffs)
         return scorecard(self.holdout_labels, [v.suggested for v in verdicts], _scored_confidence(verdicts),
                          self.scorecard.queues, cutoffs,
                          never_auto=self.policy.never_auto,
@@ -265,45 +313,20 @@ class Workspace:
         oof, queues = out_of_fold_jll(enc, batch, labels, spec, folds=5)
         qi = {q: i for i, q in enumerate(queues)}
         y = np.array([qi[lab] for lab in labels])
-        scaler = TemperatureScaler().fit(oof, y)
-        raw = np.exp(oof - oof.max(axis=1, keepdims=True))
-        raw /= raw.sum(axis=1, keepdims=True)
-        cal = scaler.transform(oof)
-        top = cal.argmax(axis=1)
-        conf = cal[np.arange(len(y)), top]
-        correct = top == y
-        raw_conf = raw[np.arange(len(y)), raw.argmax(axis=1)]
-        calibration = {
-            "temperature": scaler.temperature,
-            "ece_before": expected_calibration_error(raw_conf, raw.argmax(axis=1) == y),
-            "ece_after": expected_calibration_error(conf, correct),
-            "reliability": [vars(b) if hasattr(b, "__dict__") else b._asdict()
-                            for b in reliability_table(conf, correct)],
-        }
         say("choosing cutoffs", 0.5)
-        never = self.config.never_auto()
-        cutoffs: dict[str, float | None] = {}
-        cutoff_info: dict[str, dict[str, Any]] = {}
-        for q, i in qi.items():
-            policy_q = self.config.policy(q)
-            mine = top == i
-            if policy_q.cutoff is not None:
-                cutoffs[q] = policy_q.cutoff
-                cutoff_info[q] = {"cutoff": policy_q.cutoff, "fixed": True, "target": policy_q.target_precision}
-                continue
-            choice = solve_cutoff(conf[mine], correct[mine], policy_q.target_precision)
-            cutoffs[q] = None if q in never else choice.cutoff
-            cutoff_info[q] = {"cutoff": choice.cutoff, "target": choice.target, "precision": choice.precision,
-                              "lower_bound": choice.lower_bound, "coverage": choice.coverage,
-                              "routed": choice.routed, "never_auto": q in never}
-        policy = RoutingPolicy(cutoffs=cutoffs, never_auto=never, watch_probability=self.config.watch_probability,
-                               temperature=scaler.temperature)
+        policy, calibration, cutoff_info = _fit_policy(self.config, oof, y, queues)
+        never, cutoffs = policy.never_auto, dict(policy.cutoffs)
         say("scoring the newest items", 0.7)
         model = fit_rows(enc, batch, labels, np.arange(len(labels)), spec, queues)
         hold_batch = enc.transform([r.fields for r in newer], allow_missing=True)
-        probs = policy.calibrated(model.joint_log_likelihood(hold_batch))
+        hold_jll = model.joint_log_likelihood(hold_batch)
+        probs = policy.calibrated(hold_jll)
         hits = self._hits(enc.tokenizer, newer)
         verdicts = decide(probs, model.queues, policy, hits)
+        # the same figures on the newest items, which calibration never saw (an isotonic map is judged here)
+        calibration["holdout"] = _reliability_figures(
+            softmax_rows(hold_jll), probs, np.array([v.confidence for v in verdicts]),
+            np.array([qi.get(r.label or "", -1) for r in newer]))
         all_queues = sorted(set(queues) | {r.label for r in newer if r.label})
         card = scorecard([r.label for r in newer], [v.suggested for v in verdicts], _scored_confidence(verdicts),
                          all_queues, cutoffs, never_auto=never,
@@ -312,6 +335,79 @@ class Workspace:
                  "test_from": newer[0].arrived_at, "test_to": newer[-1].arrived_at}
         return Measurement(spec, policy, card, calibration, cutoff_info, split, [r.item_id for r in newer],
                            [r.label or "" for r in newer], probs, list(model.queues), hits)
+
+    def measure_kfold(self, spec: ModelSpec, recs: Sequence[ItemRecord] | None = None, folds: int = 5,
+                      progress: Progress | None = None) -> Measurement:
+        """Stratified k-fold: every labelled item is decided by a model, a calibration and cutoffs that never
+        saw it, so the scorecard covers all items.
+
+        Nested: inside each outer fold, temperature, isotonic map and cutoffs are fitted on an inner out-of-fold
+        pass (5 folds) over that fold's training part alone; the model counted on the whole training part then
+        decides the outer fold's items. The vocabulary is built once over all items (no labels are read for it):
+        a word only the held-out rows have gets zero counts in training, as an unseen word would.
+        """
+        say = progress or (lambda _s, _f: None)
+        recs = list(recs) if recs is not None else self._labelled()
+        items = [r.fields for r in recs]
+        labels = [r.label or "" for r in recs]
+        say("tokenising", 0.05)
+        enc, batch = self._encode(spec, items)
+        queues = sorted(set(labels))
+        qi = {q: i for i, q in enumerate(queues)}
+        y = np.array([qi[lab] for lab in labels])
+        n = len(recs)
+        k = n_folds_for(labels, folds)
+        probs = np.zeros((n, len(queues)))
+        raw = np.zeros((n, len(queues)))
+        fold_of = np.full(n, -1, dtype=np.int64)
+        policies: list[RoutingPolicy] = []
+        fold_info: list[dict[str, Any]] = []
+        from sklearn.model_selection import StratifiedKFold
+
+        splitter = StratifiedKFold(n_splits=k, shuffle=True, random_state=0)
+        for f, (train, test) in enumerate(splitter.split(np.zeros(n), y)):
+            say(f"fold {f + 1}/{k}: calibrating on the training part", 0.1 + 0.8 * f / k)
+            tr_labels = [labels[i] for i in train]
+            inner, inner_queues = out_of_fold_jll(enc, subset(batch, train), tr_labels, spec, folds=5)
+            if inner_queues != queues:  # n_folds_for keeps every queue in every training part
+                raise WorkspaceError(f"fold {f + 1}: a queue is missing from the training part")
+            policy, cal, cut = _fit_policy(self.config, inner, y[train], queues)
+            model = fit_rows(enc, batch, labels, train, spec, queues)
+            jll = model.joint_log_likelihood(subset(batch, test))
+            probs[test], raw[test], fold_of[test] = policy.calibrated(jll), softmax_rows(jll), f
+            policies.append(policy)
+            fold_info.append({"fold": f, "train_items": len(train), "test_items": len(test),
+                              "temperature": cal["temperature"], "isotonic": cal["isotonic"], "cutoffs": cut})
+        hits = self._hits(enc.tokenizer, recs)
+        meas = Measurement(spec, policies[0], scorecard([], [], np.empty(0), queues, {}), {}, {}, {},
+                           [r.item_id for r in recs], labels, probs, queues, hits, fold_of, policies)
+        verdicts = meas.verdicts()
+        routed = np.array([not v.held for v in verdicts])
+        # cutoffs differ by fold: the scorecard gets each item's routing outcome (1 routed, -1 held) against
+        # one representative cutoff per queue (the median over folds), which every routed item meets
+        shown: dict[str, float | None] = {}
+        for q in queues:
+            cs = [p.cutoffs.get(q) for p in policies if p.cutoffs.get(q) is not None]
+            shown[q] = float(np.median(cs)) if cs else None
+        never = policies[0].never_auto
+        meas.scorecard = scorecard(labels, [v.suggested for v in verdicts], np.where(routed, 1.0, -1.0), queues,
+                                   shown, never_auto=never,
+                                   targets={q: self.config.policy(q).target_precision for q in queues})
+        used = [bool(fi["isotonic"]["used"]) for fi in fold_info]
+        meas.calibration = {
+            "temperature": float(np.median([fi["temperature"] for fi in fold_info])),
+            "isotonic": {"used": all(used), "folds_used": int(sum(used))} if any(used)
+            else {"used": False, "why": fold_info[0]["isotonic"]["why"]},
+            "measured_on": "out-of-fold decisions (each fold calibrated on its own training part)",
+            "folds": fold_info,
+            **_reliability_figures(raw, probs, np.array([v.confidence for v in verdicts]), y),
+        }
+        meas.cutoffs = {q: {"cutoff": shown[q], "per_fold": [p.cutoffs.get(q) for p in policies],
+                            "target": self.config.policy(q).target_precision, "never_auto": q in never}
+                        for q in queues}
+        meas.split = {"kind": "kfold", "folds": k, "train_items": n - n // k, "test_items": n}
+        say("done", 1.0)
+        return meas
 
     def train(self, *, progress: Progress | None = None, cancel: Callable[[], bool] | None = None,
               note: str = "") -> TrainReport:
@@ -373,9 +469,16 @@ class Workspace:
             self._active = _Active(mv, model, meas.policy, dict(zip(ids, labels, strict=True)), name, [])
         return mv
 
-    def evaluate(self, progress: Progress | None = None) -> Measurement:
-        """The scorecard of the active model's settings on the current labels (corrections included)."""
+    def evaluate(self, progress: Progress | None = None, split: str = "time", folds: int = 5) -> Measurement:
+        """The scorecard of the active model's settings on the current labels (corrections included):
+        split "time" scores the newest items, "kfold" every item by stratified k-fold."""
         active = self._require_model()
+        if split == "kfold":
+            if folds < 2:
+                raise WorkspaceError(f"--folds {folds}: k-fold evaluation needs at least 2 folds")
+            return self.measure_kfold(active.model.spec, folds=folds, progress=progress)
+        if split != "time":
+            raise WorkspaceError(f"unknown split {split!r}; use time or kfold")
         return self.measure(active.model.spec, progress=progress)
 
     # ----- routing ---------------------------------------------------------------------------------------
@@ -612,6 +715,69 @@ class Workspace:
             "never_auto": sorted(self.config.never_auto()),
             "latest_batch": {"id": batch.id, "source": batch.source, **batch.summary} if batch else None,
         }
+
+
+def _table(conf: np.ndarray, correct: np.ndarray) -> list[dict[str, Any]]:
+    return [vars(b) if hasattr(b, "__dict__") else b._asdict() for b in reliability_table(conf, correct)]
+
+
+def _reliability_figures(raw: np.ndarray, cal: np.ndarray, conf: np.ndarray, y: np.ndarray) -> dict[str, Any]:
+    """ECE and reliability tables of the raw posterior, the temperature-scaled one and the final routing
+    confidence `conf` (isotonic when fitted) for rows with true queue index `y` (-1: a queue the model lacks)."""
+    rows = np.arange(len(y))
+    top_raw, top = raw.argmax(axis=1), cal.argmax(axis=1)
+    raw_conf, temp_conf = raw[rows, top_raw], cal[rows, top]
+    ok_raw, ok = top_raw == y, top == y
+    return {
+        "ece_before": expected_calibration_error(raw_conf, ok_raw),
+        "ece_temperature": expected_calibration_error(temp_conf, ok),
+        "ece_after": expected_calibration_error(conf, ok),
+        "reliability_before": _table(raw_conf, ok_raw),
+        "reliability_temperature": _table(temp_conf, ok),
+        "reliability": _table(conf, ok),  # the confidences routing compares with the cutoffs
+    }
+
+
+def _fit_policy(config: Config, oof: np.ndarray, y: np.ndarray,
+                queues: Sequence[str]) -> tuple[RoutingPolicy, dict[str, Any], dict[str, dict[str, Any]]]:
+    """From out-of-fold joint log-likelihoods: a temperature, then (with IsotonicCalibrator.MIN_ITEMS items or
+    more) an isotonic map of the top queue's temperature-scaled probability, then per queue the lowest cutoff
+    on that final confidence whose Wilson lower bound of precision reaches the queue's target."""
+    scaler = TemperatureScaler().fit(oof, y)
+    cal = scaler.transform(oof)
+    top = cal.argmax(axis=1)
+    p_top = cal[np.arange(len(y)), top]
+    correct = top == y
+    iso: IsotonicCalibrator | None = None
+    if len(y) >= IsotonicCalibrator.MIN_ITEMS:
+        iso = IsotonicCalibrator().fit(p_top, correct)
+        assert iso.x_thresholds_ is not None
+        iso_info: dict[str, Any] = {"used": True, "items": len(y), "steps": int(iso.x_thresholds_.size)}
+    else:
+        iso_info = {"used": False, "why": f"{len(y)} out-of-fold items, fewer than the "
+                    f"{IsotonicCalibrator.MIN_ITEMS} an isotonic map needs; temperature scaling only"}
+    conf = iso.transform(p_top) if iso is not None else p_top
+    calibration: dict[str, Any] = {"temperature": scaler.temperature, "isotonic": iso_info,
+                                   **_reliability_figures(softmax_rows(oof), cal, conf, y)}
+    calibration["ece_isotonic"] = calibration["ece_after"] if iso is not None else None
+    never = config.never_auto()
+    cutoffs: dict[str, float | None] = {}
+    cutoff_info: dict[str, dict[str, Any]] = {}
+    for i, q in enumerate(queues):
+        policy_q = config.policy(q)
+        mine = top == i
+        if policy_q.cutoff is not None:
+            cutoffs[q] = policy_q.cutoff
+            cutoff_info[q] = {"cutoff": policy_q.cutoff, "fixed": True, "target": policy_q.target_precision}
+            continue
+        choice = solve_cutoff(conf[mine], correct[mine], policy_q.target_precision)
+        cutoffs[q] = None if q in never else choice.cutoff
+        cutoff_info[q] = {"cutoff": choice.cutoff, "target": choice.target, "precision": choice.precision,
+                          "lower_bound": choice.lower_bound, "coverage": choice.coverage,
+                          "routed": choice.routed, "never_auto": q in never}
+    policy = RoutingPolicy(cutoffs=cutoffs, never_auto=never, watch_probability=config.watch_probability,
+                           temperature=scaler.temperature, isotonic=iso)
+    return policy, calibration, cutoff_info
 
 
 def _scored_confidence(verdicts: Sequence[Any]) -> np.ndarray:

@@ -14,6 +14,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from triage.core.calibrate import IsotonicCalibrator
 from triage.core.model import log_posterior
 
 HELD_BELOW_CUTOFF = "below cutoff"
@@ -25,13 +26,19 @@ HELD_WORD = "mentions a watch word of"
 
 @dataclass(frozen=True)
 class RoutingPolicy:
-    """Cutoffs per queue (None = no cutoff reaches the target, hold everything), plus calibration temperature."""
+    """Cutoffs per queue (None = no cutoff reaches the target, hold everything), plus the calibration.
+
+    Calibration is a temperature on the joint log-likelihood, then optionally an isotonic map of the top queue's
+    temperature-scaled probability. Only the top queue's confidence (the number cutoffs compare against) is
+    remapped; the other queues keep their temperature-scaled probabilities, which the watch-probability rule reads.
+    """
 
     cutoffs: Mapping[str, float | None]
     never_auto: frozenset[str] = field(default_factory=frozenset)
     watch_probability: float = 0.10
     temperature: float = 1.0
     default_cutoff: float | None = None  # for a queue with no solved cutoff (e.g. added by a correction)
+    isotonic: IsotonicCalibrator | None = field(default=None, compare=False)
 
     def cutoff(self, queue: str) -> float | None:
         return self.cutoffs.get(queue, self.default_cutoff)
@@ -40,17 +47,24 @@ class RoutingPolicy:
         """Posterior probabilities with the temperature applied (T > 1 softens NB's over-confidence)."""
         return np.exp(log_posterior(np.atleast_2d(jll) / self.temperature))
 
+    def top_confidence(self, p_top: np.ndarray | float) -> np.ndarray:
+        """The routing confidence of a top queue from its temperature-scaled probability (isotonic if fitted)."""
+        p = np.asarray(p_top, dtype=float)
+        return self.isotonic.transform(p) if self.isotonic is not None else p
+
     def to_dict(self) -> dict[str, object]:
         return {"cutoffs": dict(self.cutoffs), "never_auto": sorted(self.never_auto),
                 "watch_probability": self.watch_probability, "temperature": self.temperature,
-                "default_cutoff": self.default_cutoff}
+                "default_cutoff": self.default_cutoff,
+                "isotonic": self.isotonic.to_dict() if self.isotonic is not None else None}
 
     @classmethod
     def from_dict(cls, d: Mapping[str, object]) -> RoutingPolicy:
         return cls(cutoffs=dict(d.get("cutoffs", {})), never_auto=frozenset(d.get("never_auto", [])),
                    watch_probability=float(d.get("watch_probability", 0.10)),
                    temperature=float(d.get("temperature", 1.0)),
-                   default_cutoff=d.get("default_cutoff"))
+                   default_cutoff=d.get("default_cutoff"),
+                   isotonic=IsotonicCalibrator.from_dict(iso) if (iso := d.get("isotonic")) else None)
 
 
 @dataclass(frozen=True)
@@ -80,16 +94,18 @@ def watch_hits(words: Sequence[str], watch_words: Mapping[str, Sequence[str]]) -
 
 def decide(probs: np.ndarray, queues: list[str], policy: RoutingPolicy,
            hits: Sequence[Sequence[str]] | None = None) -> list[Verdict]:
-    """One verdict per row of calibrated probabilities; `hits` are each item's watch-word hits (see watch_hits)."""
+    """One verdict per row of temperature-scaled probabilities; `hits` are each item's watch-word hits (see
+    watch_hits). The top queue's confidence is the policy's `top_confidence` (isotonic when fitted)."""
     probs = np.atleast_2d(probs)
     order = np.argsort(-probs, axis=1, kind="stable")
+    tops = policy.top_confidence(probs[np.arange(probs.shape[0]), order[:, 0]]) if probs.shape[0] else []
     watch_idx = [i for i, q in enumerate(queues) if q in policy.never_auto]
     out: list[Verdict] = []
     for n, (row, p) in enumerate(zip(order, probs, strict=True)):
         words = hits[n] if hits is not None else ()
         a = int(row[0])
         b = int(row[1]) if len(row) > 1 else a
-        top, conf = queues[a], float(p[a])
+        top, conf = queues[a], float(tops[n])
         cut = policy.cutoff(top)
         watched = [queues[i] for i in watch_idx if i != a and p[i] >= policy.watch_probability]
         if top in policy.never_auto:
