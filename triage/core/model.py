@@ -25,6 +25,7 @@ from dataclasses import asdict, dataclass
 from typing import Any
 
 import numpy as np
+import scipy.sparse as sp
 from scipy.special import logsumexp
 
 from triage.core.counts import CountTables, _check_queue
@@ -37,7 +38,23 @@ TEXT_MODELS = ("multinomial", "bernoulli", "complement", "complement-norm")
 
 @dataclass(frozen=True)
 class ModelSpec:
-    """How log tables are derived from counts. alpha = 0 is allowed for multinomial text and for fields."""
+    """How log tables are derived from counts. alpha = 0 is allowed for multinomial text and for fields.
+
+    The token-count transforms of Rennie et al. (2003), applied in this order wherever counts enter the model
+    (fitting, batch and single-item scoring, learn / forget / relabel); all off by default:
+
+    - `tf_log`: x -> log(1 + x), damping a word repeated many times in one item;
+    - `idf`: x -> x * idf_t with idf_t = ln((1 + n) / (1 + df_t)) + 1 (scikit-learn's smoothed formula), n the
+      training items and df_t those holding term t. The vector is frozen at fit; a term the vocabulary gains
+      afterwards (a correction's new word) gets the largest idf of the vector, i.e. counts as the rarest word;
+    - `length_norm`: each item's transformed vector divided by its L2 norm (an empty text stays empty).
+
+    Exactness of learning from corrections: `tf_log` and `length_norm` act on one item at a time, so a sequence
+    of learns, forgets and relabels still equals a fresh fit with the same encoder. `idf` is exact only relative
+    to the idf frozen at fit: the incremental model equals a fresh count of the final labelled items under that
+    frozen vector, while a fresh fit would recompute idf from the new document frequencies (run `train`).
+    The Bernoulli text model ignores the three transforms: it sees only presence, which none of them changes.
+    """
 
     text_model: str = "multinomial"
     alpha_text: float = 1.0
@@ -47,6 +64,9 @@ class ModelSpec:
     min_count: int = 1
     max_vocab: int | None = None
     max_token_chars: int = 40
+    tf_log: bool = False
+    idf: bool = False
+    length_norm: bool = False
 
     def __post_init__(self) -> None:
         if self.text_model not in TEXT_MODELS:
@@ -72,10 +92,19 @@ def _log(x: np.ndarray) -> np.ndarray:
 class NaiveBayes:
     """A fitted router. Learned state has a trailing underscore; `counts` is the truth, the rest is derived."""
 
-    def __init__(self, encoder: Encoder, counts: CountTables, spec: ModelSpec) -> None:
+    def __init__(self, encoder: Encoder, counts: CountTables, spec: ModelSpec, idf: np.ndarray | None = None) -> None:
+        """`counts` were counted on transformed input; `idf` is the vector frozen at fit (needed if spec.idf)."""
         self.encoder = encoder
         self.counts = counts
         self.spec = spec
+        self.idf_: np.ndarray | None = None
+        if spec.idf:
+            if idf is None:
+                raise ValueError("a model with idf needs the idf vector frozen at fit (NaiveBayes.fit builds it)")
+            idf = np.array(idf, dtype=np.float64)
+            if idf.shape != (counts.n_terms,) or not np.all(np.isfinite(idf)) or (idf.size and idf.min() <= 0):
+                raise ValueError(f"idf must be {counts.n_terms} finite numbers > 0, got shape {idf.shape}")
+            self.idf_ = idf
         self.refresh()
 
     # ----- construction ------------------------------------------------------------------------------------
@@ -91,9 +120,21 @@ class NaiveBayes:
             batch = encoder.fit_transform(items)  # one tokenisation pass
         if batch is None:
             batch = encoder.transform(items)
-        counts = CountTables([], encoder.n_terms, encoder_sizes(encoder))
-        counts.fit(batch, labels)
-        return cls(encoder, counts, spec)
+        return cls.from_batch(encoder, batch, labels, spec)
+
+    @classmethod
+    def from_batch(cls, encoder: Encoder, batch: EncodedBatch, labels: Sequence[str], spec: ModelSpec, *,
+                   queues: Sequence[str] = (), idf: np.ndarray | None = None) -> NaiveBayes:
+        """Count a batch of raw (weighted) token counts encoded by `encoder`, after the spec's transforms.
+
+        `queues` are created (empty) even if no label names them. With spec.idf the idf vector is computed from
+        this batch's document frequencies unless a frozen one is given.
+        """
+        if spec.idf and idf is None:
+            idf = document_idf(batch.X)
+        counts = CountTables(sorted(queues), encoder.n_terms, encoder_sizes(encoder))
+        counts.fit(EncodedBatch(_transform_matrix(batch.X, spec, idf), batch.codes), labels)
+        return cls(encoder, counts, spec, idf)
 
     @property
     def queues(self) -> list[str]:
@@ -190,7 +231,25 @@ class NaiveBayes:
         if self.spec.text_model == "bernoulli":
             X = X.copy()
             X.data = (X.data > 0).astype(np.float64)
-        return X
+            return X
+        return _transform_matrix(X, self.spec, self.idf_)
+
+    def transform_item(self, item: EncodedItem) -> EncodedItem:
+        """One encoded item's token counts after the spec's transforms (what the counts and scores see).
+
+        Bernoulli text and a spec without transforms leave the item as it is."""
+        if self.spec.text_model == "bernoulli" or not _has_transforms(self.spec):
+            return item
+        x = item.token_counts
+        if self.spec.tf_log:
+            x = np.log1p(x)
+        if self.idf_ is not None:
+            x = x * self.idf_[item.token_ids]
+        if self.spec.length_norm:
+            norm = np.sqrt(np.dot(x, x))
+            if norm > 0:
+                x = x / norm
+        return EncodedItem(item.token_ids, x, item.codes, item.unknown_tokens)
 
     def joint_log_likelihood(self, batch: EncodedBatch) -> np.ndarray:
         """(n, Q) joint log-likelihoods, log P(c) + log P(x | c) up to a constant shared by all queues."""
@@ -208,6 +267,8 @@ class NaiveBayes:
         counts = item.token_counts
         if self.spec.text_model == "bernoulli":
             counts = np.ones_like(counts)
+        elif _has_transforms(self.spec):
+            counts = self.transform_item(item).token_counts
         with np.errstate(invalid="ignore"):
             text = (self.A_[:, item.token_ids] @ counts + counts.sum() * self.B_) * self.scale_ + self.C_
             jll = self.log_prior_ + text
@@ -231,6 +292,10 @@ class NaiveBayes:
         new_tokens, new_levels = self.encoder.grow(item)
         if new_tokens or new_levels:
             self.counts.resize(self.encoder.n_terms, encoder_sizes(self.encoder))
+            if self.idf_ is not None and self.encoder.n_terms > self.idf_.size:
+                # a word unseen at fit counts as the rarest word (the largest idf; 1 if the vocabulary was empty)
+                fill = self.idf_.max() if self.idf_.size else 1.0
+                self.idf_ = np.concatenate([self.idf_, np.full(self.encoder.n_terms - self.idf_.size, fill)])
             return True
         return False
 
@@ -239,13 +304,13 @@ class NaiveBayes:
         _check_queue(queue)  # before growing: a refused learn must not leave grown, unrefreshed tables
         grew = self._sync_shape(item)
         n_before = self.counts.n_queues
-        enc = self.encoder.encode(item, allow_missing=True)
+        enc = self.transform_item(self.encoder.encode(item, allow_missing=True))
         q = self.counts.learn(enc, queue)
         self._after_change(enc, [q], full=grew or self.counts.n_queues != n_before)
 
     def forget(self, item: Mapping[str, Any], queue: str) -> None:
         """Forget one item learned under `queue`."""
-        enc = self.encoder.encode(item, allow_missing=True)
+        enc = self.transform_item(self.encoder.encode(item, allow_missing=True))
         q = self.counts.forget(enc, queue)
         self._after_change(enc, [q], full=False)
 
@@ -256,7 +321,7 @@ class NaiveBayes:
         would add words pruned at fit (min_count, max_vocab) that the old queue never counted.
         """
         n_before = self.counts.n_queues
-        enc = self.encoder.encode(item, allow_missing=True)
+        enc = self.transform_item(self.encoder.encode(item, allow_missing=True))
         a, b = self.counts.relabel(enc, old, new)
         self._after_change(enc, [a, b], full=self.counts.n_queues != n_before)
 
@@ -268,7 +333,7 @@ class NaiveBayes:
 
     def copy(self) -> NaiveBayes:
         enc = Encoder.from_manifest(self.encoder.schema, self.encoder.to_manifest())
-        return NaiveBayes(enc, self.counts.copy(), self.spec)
+        return NaiveBayes(enc, self.counts.copy(), self.spec, self.idf_)
 
 
 def encoder_sizes(encoder: Encoder) -> list[int]:
@@ -277,6 +342,34 @@ def encoder_sizes(encoder: Encoder) -> list[int]:
 
     return [len(encoder.levels_[f.name]) if f.role is FieldRole.CATEGORY else encoder.n_codes(f)
             for f in encoder.schema.value_fields]
+
+
+def document_idf(X: Any) -> np.ndarray:
+    """Smoothed idf per column of a count matrix: ln((1 + n) / (1 + df)) + 1, as scikit-learn's TfidfTransformer."""
+    X = sp.csr_matrix(X)
+    df = np.bincount(X.indices[X.data > 0], minlength=X.shape[1]).astype(np.float64)
+    return np.log((1.0 + X.shape[0]) / (1.0 + df)) + 1.0
+
+
+def _has_transforms(spec: ModelSpec) -> bool:
+    return spec.tf_log or spec.idf or spec.length_norm
+
+
+def _transform_matrix(X: Any, spec: ModelSpec, idf: np.ndarray | None) -> Any:
+    """Rows of raw token counts after tf_log, idf and length_norm; the matrix itself when all are off."""
+    if not _has_transforms(spec):
+        return X
+    X = sp.csr_matrix(X, dtype=np.float64, copy=True)
+    if spec.tf_log:
+        np.log1p(X.data, out=X.data)
+    if spec.idf:
+        assert idf is not None
+        X.data *= idf[X.indices]
+    if spec.length_norm:
+        norms = np.sqrt(np.asarray(X.multiply(X).sum(axis=1)).ravel())
+        norms[norms == 0] = 1.0
+        X.data /= np.repeat(norms, np.diff(X.indptr))
+    return X
 
 
 def _clean(jll: np.ndarray) -> np.ndarray:

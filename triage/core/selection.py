@@ -15,9 +15,8 @@ import numpy as np
 from sklearn.metrics import accuracy_score, f1_score
 from sklearn.model_selection import StratifiedKFold
 
-from triage.core.counts import CountTables
 from triage.core.encode import EncodedBatch, Encoder
-from triage.core.model import TEXT_MODELS, ModelSpec, NaiveBayes, encoder_sizes, log_posterior
+from triage.core.model import TEXT_MODELS, ModelSpec, NaiveBayes, log_posterior
 
 
 def subset(batch: EncodedBatch, rows: np.ndarray) -> EncodedBatch:
@@ -26,10 +25,10 @@ def subset(batch: EncodedBatch, rows: np.ndarray) -> EncodedBatch:
 
 def fit_rows(encoder: Encoder, batch: EncodedBatch, labels: Sequence[str], rows: np.ndarray, spec: ModelSpec,
              queues: Sequence[str]) -> NaiveBayes:
-    """A model counted on some rows of a shared batch; every queue present (empty if absent from these rows)."""
-    counts = CountTables(sorted(queues), encoder.n_terms, encoder_sizes(encoder))
-    counts.fit(subset(batch, rows), [labels[i] for i in rows])
-    return NaiveBayes(encoder, counts, spec)
+    """A model counted on some rows of a shared batch; every queue present (empty if absent from these rows).
+
+    The spec's transforms apply; an idf vector comes from these rows' document frequencies only."""
+    return NaiveBayes.from_batch(encoder, subset(batch, rows), [labels[i] for i in rows], spec, queues=queues)
 
 
 def n_folds_for(labels: Sequence[str], wanted: int = 5) -> int:

@@ -1,6 +1,7 @@
 """Model artifacts on disk: numpy arrays in an .npz plus a JSON manifest, never pickle.
 
-A model is a folder `<name>/` holding `arrays.npz` (the count tables, the only learned numbers) and
+A model is a folder `<name>/` holding `arrays.npz` (the count tables, the only learned numbers, plus an "idf"
+array when the model weights terms by the idf frozen at fit; absent means no idf) and
 `manifest.json` (format version, schema, vocabulary, levels, bin edges, model settings, a checksum of the
 arrays, the training-data fingerprint, and any extra JSON such as calibration and cutoffs). The folder is
 written under a temporary name, every file fsynced, then renamed into place: a crash leaves either the old
@@ -72,7 +73,10 @@ def save_model(model: NaiveBayes, path: Path, *, fingerprint: str = "", extra: d
     try:
         arrays_path = tmp / "arrays.npz"
         with arrays_path.open("wb") as fh:
-            np.savez(fh, **model.counts.arrays())
+            arrays = model.counts.arrays()
+            if model.idf_ is not None:
+                arrays = {**arrays, "idf": model.idf_}
+            np.savez(fh, **arrays)
             fh.flush()
             os.fsync(fh.fileno())
         manifest = {
@@ -135,8 +139,15 @@ def load_model(path: Path) -> tuple[NaiveBayes, dict[str, Any]]:
         counts = CountTables.from_arrays(manifest["queues"], arrays, len(schema.value_fields))
         encoder = Encoder.from_manifest(schema, manifest["encoder"])
         spec = ModelSpec(**manifest["spec"])
+        idf = arrays.get("idf")
+        if spec.idf and idf is None:
+            raise ValueError("the settings weight terms by idf but arrays.npz holds no idf array")
     except (KeyError, TypeError, ValueError, zipfile.BadZipFile, OSError, CountError) as exc:
         raise ArtifactError(f"{path}: model is unreadable ({type(exc).__name__}: {exc})") from None
     if counts.n_terms != encoder.n_terms:
         raise ArtifactError(f"{path}: the count tables and the vocabulary disagree ({counts.n_terms} vs {encoder.n_terms})")
-    return NaiveBayes(encoder, counts, spec), manifest
+    try:
+        model = NaiveBayes(encoder, counts, spec, idf)
+    except ValueError as exc:
+        raise ArtifactError(f"{path}: model is unreadable ({exc})") from None
+    return model, manifest
