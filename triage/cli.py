@@ -234,23 +234,47 @@ def cmd_evaluate(args: argparse.Namespace) -> int:
     with _ws(args) as ws:
         update, stop = _progress_cb(not args.json and err.is_terminal)
         try:
-            meas = ws.evaluate(progress=update)
+            meas = ws.evaluate(progress=update, split=args.split, folds=args.folds)
         finally:
             stop()
         card = meas.scorecard.to_dict()
         if args.json:
             _emit_json({"split": meas.split, "scorecard": card, "cutoffs": meas.cutoffs,
-                        "calibration": meas.calibration})
+                        "calibration": meas.calibration, "precision_coverage": meas.precision_coverage(50)})
             return 0
         sp = meas.split
-        out.print(f"Trained on the {sp['train_items']} oldest items, scored on the {sp['test_items']} newest "
-                  f"({sp['test_from']} to {sp['test_to']}).")
+        if sp["kind"] == "kfold":
+            out.print(f"Stratified {sp['folds']}-fold: every one of the {sp['test_items']} labelled items decided by "
+                      "a model, calibration and cutoffs fitted without it (cutoff column: median over folds).")
+        else:
+            out.print(f"Trained on the {sp['train_items']} oldest items, scored on the {sp['test_items']} newest "
+                      f"({sp['test_from']} to {sp['test_to']}).")
         render_scorecard(card)
-        c = meas.calibration
-        out.print(f"Calibration: temperature {c['temperature']:.2f}, expected calibration error "
-                  f"{c['ece_before']:.3f} -> {c['ece_after']:.3f}.")
+        render_calibration(meas.calibration)
         out.print(SAFETY_NOTE)
     return 0
+
+
+def render_calibration(c: dict[str, Any], console: Console = out) -> None:
+    """The reliability table of the routing confidences and the calibration error at each step."""
+    iso = c.get("isotonic") or {}
+    where = c.get("measured_on", "out-of-fold scores of the training items, which calibration was fitted on")
+    t = Table(title="Reliability of the routing confidence", caption=f"on {where}", title_justify="left")
+    for col in ("confidence", "items", "mean confidence", "accuracy"):
+        t.add_column(col, justify="right")
+    for b in c.get("reliability", []):
+        t.add_row(f"{b['lo']:.1f}-{b['hi']:.1f}", str(b["n"]), f"{b['mean_confidence']:.3f}", f"{b['accuracy']:.3f}")
+    console.print(t)
+    steps = f"raw {c['ece_before']:.3f}, after temperature {c['ece_temperature']:.3f}"
+    steps += f", after isotonic {c['ece_after']:.3f}" if iso.get("used") else ""
+    console.print(f"Calibration: temperature {c['temperature']:.2f}; expected calibration error {steps}.")
+    if not iso.get("used"):
+        console.print(f"Isotonic calibration not used: {iso.get('why', 'not fitted')}.", markup=False)
+    hold = c.get("holdout")
+    if hold:
+        steps = f"raw {hold['ece_before']:.3f}, after temperature {hold['ece_temperature']:.3f}"
+        steps += f", after isotonic {hold['ece_after']:.3f}" if iso.get("used") else ""
+        console.print(f"On the scored items (not used for calibration): {steps}.")
 
 
 def cmd_route(args: argparse.Namespace) -> int:
@@ -421,7 +445,25 @@ def cmd_independence(args: argparse.Namespace) -> int:
     from triage import tuning
 
     with _ws(args) as ws:
-        rows = tuning.independence(ws)
+        if args.try_merge:
+            res = tuning.try_merge(ws, *args.try_merge)
+        else:
+            rows = tuning.independence(ws)
+    if args.try_merge:
+        if args.json:
+            _emit_json(res)
+            return 0
+        t = Table(title=f"{res['a']} and {res['b']}: apart vs merged into {res['field']} ({res['levels']} levels), "
+                  f"{res['folds']}-fold cross-validation", title_justify="left")
+        for col in ("fields", "accuracy", "macro-F1", "log loss"):
+            t.add_column(col, justify="left" if col == "fields" else "right")
+        for key in ("apart", "merged"):
+            r = res[key]
+            t.add_row(key, _pct(r["accuracy"]), f"{r['macro_f1']:.4f}", f"{r['log_loss']:.4f}")
+        out.print(t)
+        out.print("Merging helps (lower log loss, macro-F1 no worse): add the joint field to the export."
+                  if res["merge_helps"] else "Merging does not help on these items: keep the fields apart.")
+        return 0
     if args.json:
         _emit_json(rows)
         return 0
@@ -435,6 +477,9 @@ def cmd_independence(args: argparse.Namespace) -> int:
     n = sum(r["flagged"] for r in rows)
     out.print(f"{n} flagged pair(s) (CMI > {tuning.CMI_FLAG} nats). A flagged pair of fields could be merged into "
               "one joint field in the export.")
+    for r in rows:
+        if r["flagged"] and not r["a"].startswith("word ") and not r["b"].startswith("word "):
+            out.print(f"  check the merge: triage independence --try-merge {r['a']} {r['b']}", markup=False)
     return 0
 
 
@@ -512,8 +557,11 @@ def build_parser() -> argparse.ArgumentParser:
     sp = add("import", cmd_import, "import labelled items from a CSV, JSONL or Parquet file")
     sp.add_argument("file", help="the file to import; rejected rows go to FILE.rejects.csv beside it")
     add("train", cmd_train, "train a new model version on every labelled item and activate it")
-    add("evaluate", cmd_evaluate, "score the active settings on the newest items: confusion matrix, per-queue "
-        "precision/recall at the cutoffs, coverage")
+    sp = add("evaluate", cmd_evaluate, "score the active settings on the newest items: confusion matrix, per-queue "
+             "precision/recall at the cutoffs, coverage, reliability of the confidences")
+    sp.add_argument("--split", choices=["time", "kfold"], default="time",
+                    help="time: score the newest 20%% of items (default); kfold: every item by stratified k-fold")
+    sp.add_argument("--folds", type=int, default=5, help="folds for --split kfold (default 5)")
     sp = add("route", cmd_route, "decide a queue (or hold for review) for each item; JSON Lines on stdout")
     sp.add_argument("file", help="a CSV/JSONL/Parquet file, or - for JSON Lines on stdin")
     sp.add_argument("--follow", action="store_true", help="decide each JSON line as soon as it arrives")
@@ -536,7 +584,9 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("--adopt", action="store_true", help="write the best setting into triage.toml")
     sp = add("lift", cmd_lift, "lift and cumulative gains by decile of one queue's score (ranking leads)")
     sp.add_argument("queue", help="the queue to rank for, e.g. enterprise")
-    add("independence", cmd_independence, "check which predictors double-count evidence given the queue")
+    sp = add("independence", cmd_independence, "check which predictors double-count evidence given the queue")
+    sp.add_argument("--try-merge", nargs=2, metavar=("A", "B"),
+                    help="cross-validate with fields A and B apart and merged into one joint field A×B")
     sp = add("demo", cmd_demo, "build a demo workspace from an invented scenario, train, evaluate and route")
     sp.add_argument("dir", nargs="?", default="triage-demo", help="folder for the demo workspace")
     sp.add_argument("--scenario", choices=["voltwren", "haulmere"], default="voltwren",
