@@ -33,6 +33,10 @@ class ModelSettings:
     min_count: int = 1
     max_vocab: int = 100_000
     max_token_chars: int = 40
+    # token-count transforms (Rennie et al. 2003); see ModelSpec for what each keeps exact under corrections
+    tf_log: bool = False
+    idf: bool = False
+    length_norm: bool = False
 
 
 @dataclass
@@ -120,6 +124,9 @@ def config_from_dict(data: dict[str, Any], path: Path | str = "triage.toml") -> 
         raise _fail(path, "model.alpha_text", "must be 'auto' or a number >= 0")
     if model.prior not in ("fitted", "uniform"):
         raise _fail(path, "model.prior", "must be 'fitted' or 'uniform'")
+    for key in ("tf_log", "idf", "length_norm"):
+        if not isinstance(getattr(model, key), bool):
+            raise _fail(path, f"model.{key}", "must be true or false")
 
     routing = data.get("routing", {})
     target = float(routing.get("target_precision", DEFAULT_TARGET_PRECISION))

@@ -1,23 +1,26 @@
 """Model selection over a grid, lift for ranking leads, and the check of the independence assumption.
 
 The grid runs on one tokenisation pass: the encoder is fitted with bigrams, and the unigram settings use the
-unigram columns of the same sparse matrix. "Fields off" settings use the same matrix with no field codes.
-Every setting here keeps learning from corrections exact, because each is a function of plain counts.
+unigram columns of the same sparse matrix. "Fields off" settings use the same matrix with no field codes. Text
+field weights are tried on the same pass too: the encoder keeps one unweighted matrix per text field, and a
+setting's matrix is sum(w_f * X_f). The "transforms" switch turns on tf_log, idf and length_norm together
+(Rennie et al. 2003). Every setting keeps learning from corrections exact (each is a function of counts of
+per-item vectors), except that with the transforms on it is exact relative to the idf frozen at fit.
 """
 
 from __future__ import annotations
 
-import copy
 from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
+import scipy.sparse as sp
 
 from triage.core.calibrate import TemperatureScaler
 from triage.core.encode import EncodedBatch, Encoder
 from triage.core.metrics import captured_share, conditional_mutual_information, lift_table, solve_cutoff
 from triage.core.model import TEXT_MODELS
-from triage.core.schema import FieldRole, FieldSpec, Schema
+from triage.core.schema import Schema
 from triage.core.selection import out_of_fold_jll, score_jll
 from triage.core.tokens import Tokenizer
 from triage.workspace import Workspace, spec_from_config
@@ -34,19 +37,27 @@ class GridRow:
     alpha_text: float
     bigrams: bool
     fields: bool
+    text_weights: dict[str, float]  # weight per text field
+    transforms: bool  # tf_log + idf + length_norm
     accuracy: float
     macro_f1: float
     log_loss: float
     coverage: float  # share auto-routed at each queue's target precision (cutoffs solved on the same folds)
 
     def to_dict(self) -> dict[str, Any]:
-        return dict(vars(self))
+        d = dict(vars(self))
+        d["text_weights"] = dict(self.text_weights)
+        return d
 
 
-def _restrict(encoder: Encoder, batch: EncodedBatch, bigrams: bool, fields: bool) -> tuple[Encoder, EncodedBatch]:
-    """A view of the one tokenisation pass: unigram columns only and/or no field codes."""
-    schema = encoder.schema if fields else Schema(fields=encoder.schema.text_fields, id=encoder.schema.id,
-                                                  label=encoder.schema.label, time=encoder.schema.time)
+def _restrict(encoder: Encoder, batch: EncodedBatch, bigrams: bool, fields: bool,
+              base_schema: Schema | None = None) -> tuple[Encoder, EncodedBatch]:
+    """A view of the one tokenisation pass: unigram columns only and/or no field codes.
+
+    `base_schema` (default the encoder's) names the text weights `batch` was built with."""
+    base_schema = base_schema or encoder.schema
+    schema = base_schema if fields else Schema(fields=base_schema.text_fields, id=base_schema.id,
+                                               label=base_schema.label, time=base_schema.time)
     enc = Encoder(schema, Tokenizer(bigrams=bigrams, max_token_chars=encoder.tokenizer.max_token_chars))
     cols = np.arange(encoder.n_terms) if bigrams else np.array(
         [i for i, t in enumerate(encoder.terms_) if " " not in t], dtype=np.int64)
@@ -67,21 +78,68 @@ def run_grid(ws: Workspace, folds: int = 5, progress: Any = None) -> list[GridRo
     labels = [r.label or "" for r in recs]
     base = spec_from_config(ws.config)
     enc = Encoder(ws.config.schema, Tokenizer(bigrams=True, max_token_chars=base.max_token_chars),
-                  min_count=base.min_count, max_vocab=base.max_vocab)
-    batch = enc.fit_transform(items)
+                  min_count=base.min_count, max_vocab=base.max_vocab).fit(items)
+    by_field, codes = enc.transform_by_field(items)  # the one tokenisation pass every setting reuses
+    combos = grid_settings(ws.config.schema)
+    matrices: dict[tuple[tuple[str, float], ...], EncodedBatch] = {}
     rows: list[GridRow] = []
-    combos = [(m, a, b, f) for m in TEXT_MODELS for a in ALPHAS for b in (False, True) for f in (True, False)]
-    for k, (model, alpha, bigrams, use_fields) in enumerate(combos):
-        say(f"setting {k + 1}/{len(combos)}: {model} a={alpha} bigrams={bigrams} fields={use_fields}",
-            k / len(combos))
-        e, bt = _restrict(enc, batch, bigrams, use_fields)
-        spec = replace(base, text_model=model, alpha_text=alpha, bigrams=bigrams)
+    for k, (model, alpha, bigrams, use_fields, weights, transforms) in enumerate(combos):
+        say(f"setting {k + 1}/{len(combos)}: {model} a={alpha} bigrams={bigrams} fields={use_fields} "
+            f"weights={weights} transforms={transforms}", k / len(combos))
+        key = tuple(weights.items())
+        if key not in matrices:
+            X = sum((w * Xf for w, Xf in zip(weights.values(), by_field, strict=True)),
+                    sp.csr_matrix((len(items), enc.n_terms)))
+            matrices[key] = EncodedBatch(sp.csr_matrix(X), codes)
+        e, bt = _restrict(enc, matrices[key], bigrams, use_fields, _with_weights(enc.schema, weights))
+        spec = replace(base, text_model=model, alpha_text=alpha, bigrams=bigrams,
+                       tf_log=transforms, idf=transforms, length_norm=transforms)
         jll, queues = out_of_fold_jll(e, bt, labels, spec, folds=folds)
         acc, f1, ll = score_jll(jll, queues, labels)
-        rows.append(GridRow(model, alpha, bigrams, use_fields, acc, f1, ll,
+        rows.append(GridRow(model, alpha, bigrams, use_fields, dict(weights), transforms, acc, f1, ll,
                             _coverage(ws, jll, queues, labels)))
     say("done", 1.0)
     return sorted(rows, key=lambda r: (-r.coverage, -r.macro_f1))
+
+
+# the first text field's weights tried (the other text fields at 1); the transforms go with these text models
+FIRST_FIELD_WEIGHTS = (1.0, 2.0, 3.0)
+TRANSFORM_MODELS = ("multinomial", "complement")
+Setting = tuple[str, float, bool, bool, dict[str, float], bool]
+
+
+def grid_settings(schema: Schema) -> list[Setting]:
+    """The grid: (text model, alpha, bigrams, fields, text weights, transforms), no setting twice.
+
+    1. every text model, and multinomial and complement with the transforms, x alpha x bigrams, fields on,
+       the configured text weights (36);
+    2. the first text field at weight 1, 2 and 3 with the others at 1, for the same six text variants
+       (alpha 0.5, unigrams, fields on; up to 18, fewer where a weighting equals the configured one);
+    3. fields off, for the four text models at alpha 0.5, unigrams, configured weights (4).
+    """
+    names = [f.name for f in schema.text_fields]
+    configured = {f.name: float(f.weight) for f in schema.text_fields}
+    variants = [(m, False) for m in TEXT_MODELS] + [(m, True) for m in TRANSFORM_MODELS]
+    out: list[Setting] = [(m, a, b, True, configured, t) for m, t in variants for a in ALPHAS for b in (False, True)]
+    if names:
+        for w in FIRST_FIELD_WEIGHTS:
+            weights = {n: (w if i == 0 else 1.0) for i, n in enumerate(names)}
+            out += [(m, 0.5, False, True, weights, t) for m, t in variants]
+    out += [(m, 0.5, False, False, configured, False) for m in TEXT_MODELS]
+    seen: set[tuple[Any, ...]] = set()
+    unique = []
+    for s in out:
+        key = (*s[:4], tuple(s[4].items()), s[5])
+        if key not in seen:
+            seen.add(key)
+            unique.append(s)
+    return unique
+
+
+def _with_weights(schema: Schema, weights: dict[str, float]) -> Schema:
+    """The schema with new text field weights (FieldSpec is frozen: the schema is rebuilt)."""
+    fields = tuple(replace(f, weight=float(weights[f.name])) if f.name in weights else f for f in schema.fields)
+    return Schema(fields=fields, id=schema.id, label=schema.label, time=schema.time)
 
 
 def _coverage(ws: Workspace, jll: np.ndarray, queues: list[str], labels: list[str]) -> float:
@@ -101,13 +159,16 @@ def _coverage(ws: Workspace, jll: np.ndarray, queues: list[str], labels: list[st
 
 
 def adopt(ws: Workspace, row: GridRow) -> None:
-    """Write a grid row's text settings into triage.toml (fields on/off is reported, not a config setting)."""
+    """Write a grid row's text settings into triage.toml: text model, alpha, bigrams, the transforms in [model]
+    and the text weights in [fields] (fields on/off is reported, not a config setting)."""
     from triage.config import dump_config
     from triage.workspace import CONFIG_NAME
 
     ws.config.model.text_model = row.text_model
     ws.config.model.alpha_text = row.alpha_text
     ws.config.model.bigrams = row.bigrams
+    ws.config.model.tf_log = ws.config.model.idf = ws.config.model.length_norm = row.transforms
+    ws.config.schema = _with_weights(ws.config.schema, row.text_weights)
     (ws.root / CONFIG_NAME).write_text(dump_config(ws.config), encoding="utf-8")
 
 
@@ -155,46 +216,3 @@ def independence(ws: Workspace, top_terms: int = 15) -> list[dict[str, Any]]:
             out.append({"a": na, "b": nb, "cmi_nats": cmi, "flagged": bool(cmi > CMI_FLAG)})
     return sorted(out, key=lambda r: -r["cmi_nats"])
 
-
-def try_merge(ws: Workspace, a: str, b: str, folds: int = 5) -> dict[str, Any]:
-    """Cross-validated figures with fields `a` and `b` apart and merged into one joint field "a×b".
-
-    The joint field's levels are the code pairs observed on the labelled items, so it counts each combination as
-    one piece of evidence instead of two. Both runs share one tokenisation pass and the same folds.
-    """
-    recs = ws._labelled()
-    items = [r.fields for r in recs]
-    labels = [r.label or "" for r in recs]
-    spec = ws.model.spec if ws.model is not None else spec_from_config(ws.config)
-    enc, batch = ws._encode(spec, items)
-    fields = list(enc.schema.value_fields)
-    names = [f.name for f in fields]
-    for name in (a, b):
-        if name not in names:
-            raise ValueError(f"{name!r} is not a category or number field (fields: {', '.join(names)})")
-    if a == b:
-        raise ValueError("name two different fields to merge")
-    ia, ib = names.index(a), names.index(b)
-    la, lb = enc.field_labels(fields[ia]), enc.field_labels(fields[ib])
-    pairs = batch.codes[:, ia] * len(lb) + batch.codes[:, ib]
-    observed, joint = np.unique(pairs, return_inverse=True)
-    merged_name = f"{a}×{b}"
-    rest = [k for k in range(len(fields)) if k not in (ia, ib)]
-    schema = Schema(fields=tuple(f for f in enc.schema.fields if f.name not in (a, b))
-                    + (FieldSpec(merged_name, FieldRole.CATEGORY),),
-                    id=enc.schema.id, label=enc.schema.label, time=enc.schema.time)
-    merged = copy.copy(enc)
-    merged.schema = schema
-    merged.levels_ = {k: v for k, v in enc.levels_.items() if k not in (a, b)}
-    merged.level_index_ = {k: v for k, v in enc.level_index_.items() if k not in (a, b)}
-    merged.edges_ = {k: v for k, v in enc.edges_.items() if k not in (a, b)}
-    merged._set_levels(merged_name, [f"{la[p // len(lb)]} | {lb[p % len(lb)]}" for p in observed])
-    merged_batch = EncodedBatch(batch.X, np.column_stack([batch.codes[:, rest], joint]).astype(np.int64))
-    out: dict[str, Any] = {"a": a, "b": b, "field": merged_name, "levels": int(observed.size), "folds": folds}
-    for key, (e, bt) in {"apart": (enc, batch), "merged": (merged, merged_batch)}.items():
-        jll, queues = out_of_fold_jll(e, bt, labels, spec, folds=folds)
-        acc, f1, ll = score_jll(jll, queues, labels)
-        out[key] = {"accuracy": acc, "macro_f1": f1, "log_loss": ll}
-    out["merge_helps"] = bool(out["merged"]["log_loss"] < out["apart"]["log_loss"]
-                              and out["merged"]["macro_f1"] >= out["apart"]["macro_f1"])
-    return out

@@ -185,6 +185,7 @@ def spec_from_config(config: Config, **overrides: Any) -> ModelSpec:
         alpha_text=1.0 if m.alpha_text == "auto" else float(m.alpha_text),
         alpha_fields=float(m.alpha_fields), prior=m.prior, bigrams=bool(m.bigrams), min_count=int(m.min_count),
         max_vocab=int(m.max_vocab) if m.max_vocab else None, max_token_chars=int(m.max_token_chars),
+        tf_log=bool(m.tf_log), idf=bool(m.idf), length_norm=bool(m.length_norm),
     )
     return replace(spec, **overrides)
 

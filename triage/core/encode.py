@@ -314,6 +314,42 @@ class Encoder:
         enc.edges_ = {k: np.asarray(v, dtype=np.float64) for k, v in m["edges"].items()}
         return enc
 
+    # ----- per-field views -----------------------------------------------------------------------------------
+    def transform_by_field(self, items: Sequence[Mapping[str, Any]], *,
+                           allow_missing: bool = False) -> tuple[list[sp.csr_matrix], np.ndarray]:
+        """Unweighted token counts per text field (schema order, shared vocabulary) and the field codes.
+
+        One tokenisation pass serves any field weights: sum(w_f * X_f) is what `transform` gives with weights w_f.
+        """
+        text_fields = self.schema.text_fields
+        value_fields = self.schema.value_fields
+        vocab = self.vocabulary_
+        tokens = self.tokenizer.tokens
+        buffers = [(array("q", [0]), array("q"), array("d")) for _ in text_fields]
+        codes = np.empty((len(items), len(value_fields)), dtype=np.int64)
+        for i, item in enumerate(items):
+            for f, (indptr, indices, data) in zip(text_fields, buffers, strict=True):
+                acc: dict[int, float] = {}
+                for tok in tokens(self._get(item, f, allow_missing)):
+                    j = vocab.get(tok)
+                    if j is not None:
+                        acc[j] = acc.get(j, 0.0) + 1.0
+                indices.extend(acc.keys())
+                data.extend(acc.values())
+                indptr.append(len(indices))
+            for k, f in enumerate(value_fields):
+                codes[i, k] = self.code(f, self._get(item, f, allow_missing))
+        out = []
+        for indptr, indices, data in buffers:
+            X = sp.csr_matrix(
+                (np.frombuffer(data, dtype=np.float64), np.frombuffer(indices, dtype=np.int64),
+                 np.frombuffer(indptr, dtype=np.int64)),
+                shape=(len(items), self.n_terms),
+            )
+            X.sort_indices()
+            out.append(X)
+        return out, codes
+
 
 def _quantile_edges(xs: np.ndarray, bins: int) -> np.ndarray:
     """Inner bin edges at training quantiles; duplicates dropped, so a field with few values gets fewer bins."""
