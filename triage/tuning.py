@@ -10,6 +10,7 @@ per-item vectors), except that with the transforms on it is exact relative to th
 
 from __future__ import annotations
 
+import copy
 from dataclasses import dataclass, replace
 from typing import Any
 
@@ -20,7 +21,7 @@ from triage.core.calibrate import TemperatureScaler
 from triage.core.encode import EncodedBatch, Encoder
 from triage.core.metrics import captured_share, conditional_mutual_information, lift_table, solve_cutoff
 from triage.core.model import TEXT_MODELS
-from triage.core.schema import Schema
+from triage.core.schema import FieldRole, FieldSpec, Schema
 from triage.core.selection import out_of_fold_jll, score_jll
 from triage.core.tokens import Tokenizer
 from triage.workspace import Workspace, spec_from_config
@@ -216,3 +217,46 @@ def independence(ws: Workspace, top_terms: int = 15) -> list[dict[str, Any]]:
             out.append({"a": na, "b": nb, "cmi_nats": cmi, "flagged": bool(cmi > CMI_FLAG)})
     return sorted(out, key=lambda r: -r["cmi_nats"])
 
+
+def try_merge(ws: Workspace, a: str, b: str, folds: int = 5) -> dict[str, Any]:
+    """Cross-validated figures with fields `a` and `b` apart and merged into one joint field "a×b".
+
+    The joint field's levels are the code pairs observed on the labelled items, so it counts each combination as
+    one piece of evidence instead of two. Both runs share one tokenisation pass and the same folds.
+    """
+    recs = ws._labelled()
+    items = [r.fields for r in recs]
+    labels = [r.label or "" for r in recs]
+    spec = ws.model.spec if ws.model is not None else spec_from_config(ws.config)
+    enc, batch = ws._encode(spec, items)
+    fields = list(enc.schema.value_fields)
+    names = [f.name for f in fields]
+    for name in (a, b):
+        if name not in names:
+            raise ValueError(f"{name!r} is not a category or number field (fields: {', '.join(names)})")
+    if a == b:
+        raise ValueError("name two different fields to merge")
+    ia, ib = names.index(a), names.index(b)
+    la, lb = enc.field_labels(fields[ia]), enc.field_labels(fields[ib])
+    pairs = batch.codes[:, ia] * len(lb) + batch.codes[:, ib]
+    observed, joint = np.unique(pairs, return_inverse=True)
+    merged_name = f"{a}×{b}"
+    rest = [k for k in range(len(fields)) if k not in (ia, ib)]
+    schema = Schema(fields=tuple(f for f in enc.schema.fields if f.name not in (a, b))
+                    + (FieldSpec(merged_name, FieldRole.CATEGORY),),
+                    id=enc.schema.id, label=enc.schema.label, time=enc.schema.time)
+    merged = copy.copy(enc)
+    merged.schema = schema
+    merged.levels_ = {k: v for k, v in enc.levels_.items() if k not in (a, b)}
+    merged.level_index_ = {k: v for k, v in enc.level_index_.items() if k not in (a, b)}
+    merged.edges_ = {k: v for k, v in enc.edges_.items() if k not in (a, b)}
+    merged._set_levels(merged_name, [f"{la[p // len(lb)]} | {lb[p % len(lb)]}" for p in observed])
+    merged_batch = EncodedBatch(batch.X, np.column_stack([batch.codes[:, rest], joint]).astype(np.int64))
+    out: dict[str, Any] = {"a": a, "b": b, "field": merged_name, "levels": int(observed.size), "folds": folds}
+    for key, (e, bt) in {"apart": (enc, batch), "merged": (merged, merged_batch)}.items():
+        jll, queues = out_of_fold_jll(e, bt, labels, spec, folds=folds)
+        acc, f1, ll = score_jll(jll, queues, labels)
+        out[key] = {"accuracy": acc, "macro_f1": f1, "log_loss": ll}
+    out["merge_helps"] = bool(out["merged"]["log_loss"] < out["apart"]["log_loss"]
+                              and out["merged"]["macro_f1"] >= out["apart"]["macro_f1"])
+    return out
