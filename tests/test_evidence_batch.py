@@ -45,3 +45,20 @@ def test_strongest_batch_equals_explain(text_model: str) -> None:
         want = sorted(terms, key=lambda t: -abs(t.weight))[:5]
         assert [round(t.weight, 9) for t in got[i]] == [round(t.weight, 9) for t in want]
         assert {t.kind for t in got[i]} <= {"token", "field", "prior", "absent"}
+
+
+@pytest.mark.parametrize("text_model", ["multinomial", "complement", "complement-norm"])
+def test_evidence_sums_to_gap_with_transforms(text_model: str) -> None:
+    """With tf-log, idf and length normalisation on, the terms still add up to the log-odds gap."""
+    rng = np.random.default_rng(5)
+    train = _items(rng, 200)
+    labels = [str(rng.choice(["billing", "safety", "app"])) for _ in train]
+    spec = ModelSpec(text_model=text_model, alpha_text=0.5, tf_log=True, idf=True, length_norm=True)
+    model = NaiveBayes.fit(SCHEMA, train, labels, spec)
+    batch = model.encoder.transform(_items(rng, 40), allow_missing=True)
+    order = np.argsort(-model.joint_log_likelihood(batch), axis=1, kind="stable")
+    got = strongest_batch(model, batch, order[:, 0], order[:, 1], k=1000)
+    for i in range(len(batch)):
+        ev = explain(model, batch.row(i), int(order[i, 0]), int(order[i, 1]))
+        assert abs(ev.total() - ev.gap) < 1e-9
+        assert abs(sum(t.weight for t in got[i]) - ev.gap) < 1e-9

@@ -65,6 +65,7 @@ def explain(model: NaiveBayes, item: EncodedItem, top: int | None = None, runner
             *, absent_detail: int = 3) -> Evidence:
     """Evidence for queue index `top` against `runner_up` (default: the two highest-scoring queues)."""
     jll = model.joint_log_likelihood_one(item)
+    item = model.transform_item(item)  # the counts the model scores (tf-log / idf / length norm when on)
     if model.counts.n_queues < 2:
         q = model.queues[0] if model.queues else "(none)"
         return Evidence(q, q, 0.0, [], item.unknown_tokens)
@@ -157,7 +158,7 @@ def strongest_batch(model: NaiveBayes, batch: EncodedBatch, top: np.ndarray, run
         m = np.ones_like(w_tok)
     else:
         A, B, S = model.A_, model.B_, model.scale_
-        m = X.data
+        m = model._text_input(X).data  # same sparsity pattern as X; the transformed counts when enabled
         w_tok = _finite_diff((A[a, cols] + B[a]) * S[a], (A[b, cols] + B[b]) * S[b]) * m
     kinds.append(np.full(w_tok.size, 1))
     weights.append(w_tok)
