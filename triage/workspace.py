@@ -32,6 +32,7 @@ from triage.core.calibrate import (
 )
 from triage.core.encode import EncodedBatch, Encoder
 from triage.core.evidence import explain as explain_item
+from triage.core.evidence import strongest_batch
 from triage.core.metrics import (
     Scorecard,
     population_stability_index,
@@ -55,6 +56,8 @@ SNAPSHOT_EVERY = 200
 HOLDOUT_SHARE = 0.2
 MIN_ITEMS = 20
 EVIDENCE_TERMS = 8
+# a population stability index above 0.25 is read as a major shift (common practice in credit scoring, no source)
+PSI_FLAG = 0.25
 
 Progress = Callable[[str, float], None]
 
@@ -265,13 +268,13 @@ class Workspace:
 
     def refresh_if_changed(self) -> bool:
         """Pick up a model version activated by another process (training, rollback); True if it changed."""
-        mv = self.store.active_model()
-        current = self._active.version.version if self._active else None
-        if (mv.version if mv else None) == current:
-            return False
-        with self._lock:
+        with self._lock:  # read and swap under the lock, so a correction cannot slip in between
+            mv = self.store.active_model()
+            current = self._active.version.version if self._active else None
+            if (mv.version if mv else None) == current:
+                return False
             self._active = self._load_version(mv) if mv else None
-        return True
+            return True
 
     # ----- items -----------------------------------------------------------------------------------------
     def import_file(self, path: Path | str, *, progress: bool = False) -> ImportReport:
@@ -319,10 +322,10 @@ class Workspace:
         never, cutoffs = policy.never_auto, dict(policy.cutoffs)
         say("scoring the newest items", 0.7)
         model = fit_rows(enc, batch, labels, np.arange(len(labels)), spec, queues)
-        hold_batch = enc.transform([r.fields for r in newer], allow_missing=True)
+        hold_batch = enc.transform([r.fields for r in newer], allow_missing=True, keep_words=True)
         hold_jll = model.joint_log_likelihood(hold_batch)
         probs = policy.calibrated(hold_jll)
-        hits = self._hits(enc.tokenizer, newer)
+        hits = self._hits(hold_batch.words or ())
         verdicts = decide(probs, model.queues, policy, hits)
         # the same figures on the newest items, which calibration never saw (an isotonic map is judged here)
         calibration["holdout"] = _reliability_figures(
@@ -379,7 +382,7 @@ class Workspace:
             policies.append(policy)
             fold_info.append({"fold": f, "train_items": len(train), "test_items": len(test),
                               "temperature": cal["temperature"], "isotonic": cal["isotonic"], "cutoffs": cut})
-        hits = self._hits(enc.tokenizer, recs)
+        hits = self._hits(enc.transform([r.fields for r in recs], allow_missing=True, keep_words=True).words or ())
         meas = Measurement(spec, policies[0], scorecard([], [], np.empty(0), queues, {}), {}, {}, {},
                            [r.item_id for r in recs], labels, probs, queues, hits, fold_of, policies)
         verdicts = meas.verdicts()
@@ -483,12 +486,8 @@ class Workspace:
         return self.measure(active.model.spec, progress=progress)
 
     # ----- routing ---------------------------------------------------------------------------------------
-    def _decision(self, active: _Active, rec: ItemRecord, probs: np.ndarray, verdict: Any,
-                  evidence_terms: int = EVIDENCE_TERMS) -> dict[str, Any]:
-        enc = active.model.encoder.encode(rec.fields, allow_missing=True)
-        ev = explain_item(active.model, enc, verdict.top_index, verdict.runner_up_index) \
-            if verdict.runner_up is not None else None
-        terms = ev.strongest(evidence_terms) if ev else []
+    def _decision(self, active: _Active, rec: ItemRecord, verdict: Any, terms: Sequence[Any],
+                  unseen: Sequence[str]) -> dict[str, Any]:
         return {
             "id": rec.item_id,
             "queue": verdict.queue,
@@ -503,41 +502,52 @@ class Workspace:
             "flag": "never_auto" if verdict.suggested in active.policy.never_auto
             else ("watch" if verdict.reason.startswith((HELD_WATCH, HELD_WORD)) else None),
             "evidence": [{"feature": t.feature, "weight": round(t.weight, 4), "kind": t.kind} for t in terms],
-            "unseen_words": list(enc.unknown_tokens[:20]),
+            "unseen_words": list(unseen[:20]),
             "model_version": active.version.version,
         }
 
     def decide_records(self, records: Sequence[ItemRecord]) -> list[dict[str, Any]]:
         """Decisions for items, without storing anything (a pure read of the active model)."""
+        return self._decide(records)[0]
+
+    def _decide(self, records: Sequence[ItemRecord]) -> tuple[list[dict[str, Any]], EncodedBatch | None]:
+        """Decisions and the encoded batch behind them (one tokenisation of each text)."""
         with self._lock:
             active = self._require_model()
             if not records:
-                return []
-            batch = active.model.encoder.transform([r.fields for r in records], allow_missing=True)
-            probs = active.policy.calibrated(active.model.joint_log_likelihood(batch))
-            verdicts = decide(probs, active.model.queues, active.policy, self._hits(active.model.encoder.tokenizer, records))
-            return [self._decision(active, r, p, v) for r, p, v in zip(records, probs, verdicts, strict=True)]
+                return [], None
+            model = active.model
+            batch = model.encoder.transform([r.fields for r in records], allow_missing=True, keep_words=True)
+            probs = active.policy.calibrated(model.joint_log_likelihood(batch))
+            verdicts = decide(probs, model.queues, active.policy, self._hits(batch.words or ()))
+            top = np.array([v.top_index for v in verdicts])
+            runner = np.array([v.runner_up_index for v in verdicts])
+            evidence = strongest_batch(model, batch, top, runner, EVIDENCE_TERMS) if len(model.queues) > 1 \
+                else [[] for _ in records]
+            unknown = batch.unknown or tuple(() for _ in records)
+            decisions = [self._decision(active, r, v, ev, unk)
+                         for r, v, ev, unk in zip(records, verdicts, evidence, unknown, strict=True)]
+            return decisions, batch
 
-    def _hits(self, tok: Tokenizer, records: Sequence[ItemRecord]) -> list[list[str]] | None:
+    def _hits(self, words_per_item: Sequence[Iterable[str]]) -> list[list[str]] | None:
         """Watch-word hits per item (None when no queue has watch words)."""
         watch = self.config.watch_words()
         if not watch:
             return None
-        texts = [f.name for f in self.config.schema.text_fields]
-        return [watch_hits([w for name in texts for w in tok.words(r.fields.get(name))], watch) for r in records]
+        return [watch_hits(list(words), watch) for words in words_per_item]
 
     def route_records(self, records: Sequence[ItemRecord], source: str) -> tuple[list[dict[str, Any]], int]:
-        """Decide, store the items (so they can be corrected later) and the decisions; returns (decisions, batch)."""
-        decisions = self.decide_records(records)
-        active = self._require_model()
-        self.store.import_items([ItemRecord(r.item_id, r.fields, None, r.arrived_at) for r in records],
-                                source=source)
-        summary = self.batch_summary(records, decisions)
+        """Decide, store the items (so they can be corrected later) and the decisions in one transaction;
+        returns (decisions, batch id)."""
+        decisions, batch = self._decide(records)
+        summary = self.batch_summary(decisions, batch)
         rows = [Decision(item_id=d["id"], model_version=d["model_version"], queue=d["queue"],
                          suggested=d["suggested"], confidence=d["confidence"], held=d["held"],
                          runner_up=d["runner_up"], evidence=d["evidence"]) for d in decisions]
-        batch_id = self.store.record_batch(source, rows, summary)
-        del active
+        with self.store.transaction():
+            self.store.import_items([ItemRecord(r.item_id, r.fields, None, r.arrived_at) for r in records],
+                                    source=source)
+            batch_id = self.store.record_batch(source, rows, summary)
         return decisions, batch_id
 
     def route_file(self, path: Path | str) -> tuple[list[dict[str, Any]], IngestResult, int]:
@@ -546,26 +556,24 @@ class Workspace:
         decisions, batch_id = self.route_records(result.records, source=str(path))
         return decisions, result, batch_id
 
-    def batch_summary(self, records: Sequence[ItemRecord], decisions: Sequence[dict[str, Any]]) -> dict[str, Any]:
-        """Counts per queue and drift figures: unseen-word share and the shift of the predicted queue mix (PSI)."""
+    def batch_summary(self, decisions: Sequence[dict[str, Any]], batch: EncodedBatch | None) -> dict[str, Any]:
+        """Counts per queue and drift figures: the share of each item's distinct words never seen in training,
+        and the shift of the predicted queue mix against the training mix (population stability index)."""
         active = self._require_model()
         n = len(decisions)
         routed = sum(1 for d in decisions if not d["held"])
         per_queue: dict[str, int] = {}
         for d in decisions:
             per_queue[d["suggested"]] = per_queue.get(d["suggested"], 0) + 1
-        unseen = total = 0
-        for r in records:
-            acc, unknown = active.model.encoder.token_counts(r.fields, allow_missing=True)
-            unseen += len(unknown)
-            total += len(unknown) + len(acc)
+        unseen = sum(len(u) for u in batch.unknown) if batch is not None and batch.unknown else 0
+        total = unseen + (batch.X.nnz if batch is not None else 0)
         queues = active.model.queues
         expected = active.model.counts.class_count_
         actual = np.array([per_queue.get(q, 0) for q in queues], dtype=float)
         psi = population_stability_index(expected, actual) if n else 0.0
         return {"n": n, "routed": routed, "held": n - routed, "coverage": routed / n if n else 0.0,
                 "per_queue": per_queue, "unseen_word_share": unseen / total if total else 0.0,
-                "queue_mix_psi": psi, "drift_flag": bool(psi > 0.25)}
+                "queue_mix_psi": psi, "drift_flag": bool(psi > PSI_FLAG)}
 
     # ----- explaining ------------------------------------------------------------------------------------
     def explain(self, item_id: str, n: int = 10) -> dict[str, Any]:
@@ -578,7 +586,8 @@ class Workspace:
             enc = active.model.encoder.encode(rec.fields, allow_missing=True)
             jll = active.model.joint_log_likelihood_one(enc)
             probs = active.policy.calibrated(jll)
-            verdict = decide(probs, active.model.queues, active.policy, self._hits(active.model.encoder.tokenizer, [rec]))[0]
+            words = active.model.encoder.transform([rec.fields], allow_missing=True, keep_words=True).words or ()
+            verdict = decide(probs, active.model.queues, active.policy, self._hits(words))[0]
             ev = explain_item(active.model, enc, verdict.top_index, verdict.runner_up_index)
         return {
             "id": item_id, "label": rec.label, "fields": rec.fields, "queue": verdict.queue,
