@@ -36,7 +36,7 @@ from sklearn.naive_bayes import ComplementNB  # noqa: E402
 
 from demo_corpus.generate import generate  # noqa: E402
 from triage.config import load_config  # noqa: E402
-from triage.core.evidence import explain  # noqa: E402
+from triage.core.evidence import explain, strongest_batch  # noqa: E402
 from triage.core.model import ModelSpec, NaiveBayes  # noqa: E402
 from triage.core.schema import FieldRole, FieldSpec, Schema  # noqa: E402
 from triage.core.tokens import _TOKEN  # noqa: E402
@@ -158,16 +158,14 @@ def fit_reference(texts: Sequence[str], labels: Sequence[str]) -> tuple[CountVec
 
 
 def route_ours(model: NaiveBayes, items: Sequence[dict[str, Any]]) -> list[tuple[str, list[Any]]]:
-    """Batch routing with evidence: encode, score, then explain each item's top queue against its runner-up."""
+    """Batch routing with evidence: encode, score, then the top-5 terms of each item's top queue against its
+    runner-up, for the whole batch at once (what the workspace does when it routes)."""
     batch = model.encoder.transform(items, allow_missing=True)
     jll = model.joint_log_likelihood(batch)
     order = np.argsort(-jll, axis=1, kind="stable")[:, :2]
-    out = []
+    terms = strongest_batch(model, batch, order[:, 0], order[:, 1], TOP_TERMS)
     queues = model.queues
-    for i, (a, b) in enumerate(order.tolist()):
-        ev = explain(model, batch.row(i), top=a, runner_up=b)
-        out.append((queues[a], ev.strongest(TOP_TERMS)))
-    return out
+    return [(queues[a], t) for a, t in zip(order[:, 0].tolist(), terms, strict=True)]
 
 
 def route_reference(pipe: tuple[CountVectorizer, ComplementNB], texts: Sequence[str]) -> np.ndarray:

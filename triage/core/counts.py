@@ -11,6 +11,7 @@ from __future__ import annotations
 from collections.abc import Iterable, Sequence
 
 import numpy as np
+import scipy.sparse as sp
 
 from triage.core.encode import EncodedBatch, EncodedItem
 
@@ -95,8 +96,9 @@ class CountTables:
         Y[np.arange(len(labels)), idx] = 1.0
         self.class_count_ += Y.sum(axis=0)
         self.token_count_ += np.asarray((batch.X.T @ Y).T)
-        present = batch.X.copy()
-        present.data = (present.data > 0).astype(np.float64)
+        # presence shares the count matrix's index arrays: only a new data array, not a copy of the matrix
+        X = batch.X
+        present = sp.csr_matrix(((X.data > 0).astype(np.float64), X.indices, X.indptr), shape=X.shape)
         self.doc_freq_ += np.asarray((present.T @ Y).T)
         for k, table in enumerate(self.field_count_):
             np.add.at(table, (idx, batch.codes[:, k]), 1.0)

@@ -120,7 +120,7 @@ class Encoder:
         provisional: dict[str, int] = {}
         occurrences: list[int] = []
         indptr = array("q", [0])
-        indices = array("q")
+        indices = array("i")  # 4 bytes an entry: vocabularies stay far below 2**31
         data = array("d")
         text_fields = self.schema.text_fields
         tokens = self.tokenizer.tokens
@@ -144,7 +144,7 @@ class Encoder:
             kept = kept[: self.max_vocab]
         self.terms_ = sorted(t for t, _ in kept)
         self.vocabulary_ = {t: i for i, t in enumerate(self.terms_)}
-        remap = np.full(len(occurrences), -1, dtype=np.int64)
+        remap = np.full(len(occurrences), -1, dtype=np.int32)
         for t, i in self.vocabulary_.items():
             remap[provisional[t]] = i
         for f in self.schema.value_fields:
@@ -155,10 +155,12 @@ class Encoder:
             else:
                 xs = np.array([x for v in values if (x := _number(v, f.name)) is not None], dtype=np.float64)
                 self.edges_[f.name] = _quantile_edges(xs, f.bins)
-        cols = remap[np.frombuffer(indices, dtype=np.int64)] if len(indices) else np.empty(0, dtype=np.int64)
+        # renumber in place of a COO round trip: new row pointers from a running count of kept entries
+        cols = remap[np.frombuffer(indices, dtype=np.int32)] if len(indices) else np.empty(0, dtype=np.int32)
         keep = cols >= 0
-        row_of = np.repeat(np.arange(len(items)), np.diff(np.frombuffer(indptr, dtype=np.int64)))
-        X = sp.csr_matrix((np.frombuffer(data, dtype=np.float64)[keep], (row_of[keep], cols[keep])),
+        kept_before = np.concatenate(([0], np.cumsum(keep, dtype=np.int64)))
+        new_indptr = kept_before[np.frombuffer(indptr, dtype=np.int64)]
+        X = sp.csr_matrix((np.frombuffer(data, dtype=np.float64)[keep], cols[keep], new_indptr),
                           shape=(len(items), self.n_terms))
         X.sort_indices()
         codes = np.empty((len(items), len(self.schema.value_fields)), dtype=np.int64)
