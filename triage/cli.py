@@ -381,6 +381,19 @@ def cmd_models(args: argparse.Namespace) -> int:
     return 0
 
 
+def cmd_cutoff(args: argparse.Namespace) -> int:
+    value = None if args.value.lower() in ("none", "off") else float(args.value)
+    with _ws(args) as ws:
+        mv = ws.set_cutoffs({args.queue: value}, by=args.by)
+    if args.json:
+        _emit_json({"version": mv.version, "queue": args.queue, "cutoff": value})
+    else:
+        what = "auto-routes nothing" if value is None else f"auto-routes at confidence >= {value:.3f}"
+        out.print(f"{args.queue} now {what}; model version {mv.version} is active (`triage models activate "
+                  f"{mv.parent}` undoes it). `triage evaluate` shows what the cutoffs do.")
+    return 0
+
+
 def cmd_overview(args: argparse.Namespace) -> int:
     with _ws(args) as ws:
         data = ws.overview()
@@ -577,6 +590,11 @@ def build_parser() -> argparse.ArgumentParser:
     sp = add("models", cmd_models, "list model versions, or activate one (rollback)")
     sp.add_argument("action", nargs="?", choices=["list", "activate"], default="list", help="list or activate")
     sp.add_argument("version", nargs="?", type=int, help="the version to activate")
+    sp = add("cutoff", cmd_cutoff, "set one queue's cutoff by hand (a new model version; the solver's stays in the "
+             "parent)")
+    sp.add_argument("queue", help="the queue")
+    sp.add_argument("value", help="a confidence between 0 and 1, or none to auto-route nothing")
+    sp.add_argument("--by", default="operator", help="who set it")
     add("overview", cmd_overview, "items, queues, the active model and the latest batch, in one view")
     sp = add("tune", cmd_tune, "compare model settings by cross-validation, side by side; --adopt the best")
     sp.add_argument("--folds", type=int, default=5, help="cross-validation folds (default 5)")

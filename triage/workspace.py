@@ -438,7 +438,12 @@ class Workspace:
             enc, batch = self._encode(base, items)
             check()
             say(f"comparing {len(specs)} settings by cross-validation", 0.05)
-            best, scores = select(enc, batch, [r.label or "" for r in older], specs, folds=3)
+            def step(i: int, spec: ModelSpec) -> None:
+                check()  # cancelling takes effect between settings, not only between stages
+                say(f"setting {i + 1}/{len(specs)}: {spec.text_model}, alpha {spec.alpha_text:g}",
+                    0.05 + 0.05 * i / len(specs))
+
+            best, scores = select(enc, batch, [r.label or "" for r in older], specs, folds=3, before_each=step)
             selection = [s.to_dict() for s in scores]
             base = best.spec
         check()
@@ -706,6 +711,33 @@ class Workspace:
             loaded.version = mv
             self._active = loaded
         return mv
+
+    def set_cutoffs(self, cutoffs: dict[str, float | None], by: str = "operator") -> ModelVersion:
+        """Adopt other cutoffs as a new model version (same counts, new routing policy); rollback restores.
+
+        A never-auto queue keeps no cutoff whatever is asked: a person sees every item predicted there."""
+        with self._lock:
+            active = self._require_model()
+            unknown = set(cutoffs) - set(active.model.queues)
+            if unknown:
+                raise WorkspaceError(f"unknown queue(s): {', '.join(sorted(unknown))}")
+            for q, c in cutoffs.items():
+                if c is not None and not 0.0 <= float(c) <= 1.0:
+                    raise WorkspaceError(f"cutoff for {q!r} must be between 0 and 1, got {c}")
+                if q in active.policy.never_auto and c is not None:
+                    raise WorkspaceError(f"{q!r} is a never-auto queue: a person reviews every item, it takes no cutoff")
+            merged = dict(active.policy.cutoffs)
+            merged.update({q: None if c is None else float(c) for q, c in cutoffs.items()})
+            policy = replace(active.policy, cutoffs=merged)
+            config = dict(active.version.config)
+            config.update({"policy": policy.to_dict(), "corrections": list(active.corrections),
+                           "base_artifact": active.base_artifact})
+            changed = ", ".join(f"{q} {'none' if c is None else f'{c:.3f}'}" for q, c in sorted(cutoffs.items()))
+            mv = self.store.add_model_version(active.version.version, "adopt", config, active.version.fingerprint,
+                                              active.base_artifact, scorecard=active.version.scorecard,
+                                              note=f"cutoffs set by {by}: {changed}")
+            active.version, active.policy = mv, policy
+            return mv
 
     def overview(self) -> dict[str, Any]:
         """Figures for a dashboard: items, queues, the active version and its scorecard summary, drift."""

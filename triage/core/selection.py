@@ -8,7 +8,7 @@ unseen word would, so no label leaks.
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
 
 import numpy as np
@@ -81,10 +81,15 @@ def quick_grid(base: ModelSpec) -> list[ModelSpec]:
 
 
 def select(encoder: Encoder, batch: EncodedBatch, labels: Sequence[str], specs: Sequence[ModelSpec],
-           folds: int = 3, seed: int = 0) -> tuple[SettingScore, list[SettingScore]]:
-    """Score every setting by cross-validation; the best by macro-F1 (ties: lower log loss)."""
+           folds: int = 3, seed: int = 0,
+           before_each: Callable[[int, ModelSpec], None] | None = None) -> tuple[SettingScore, list[SettingScore]]:
+    """Score every setting by cross-validation; the best by macro-F1 (ties: lower log loss).
+
+    `before_each(i, spec)` runs before each setting: for progress, and a place to raise to cancel."""
     scores = []
-    for spec in specs:
+    for i, spec in enumerate(specs):
+        if before_each is not None:
+            before_each(i, spec)
         jll, queues = out_of_fold_jll(encoder, batch, labels, spec, folds, seed)
         acc, f1, ll = score_jll(jll, queues, labels)
         scores.append(SettingScore(spec, acc, f1, ll))

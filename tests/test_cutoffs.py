@@ -1,0 +1,59 @@
+"""Cutoffs set by hand: a new model version, used at once, kept across a restart, undone by rollback."""
+
+from __future__ import annotations
+
+import shutil
+from pathlib import Path
+
+import pandas as pd
+import pytest
+
+from triage.workspace import Workspace, WorkspaceError
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+@pytest.fixture(scope="module")
+def trained(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    root = tmp_path_factory.mktemp("cutoffs")
+    cfg = (ROOT / "configs" / "voltwren.toml").read_text(encoding="utf-8")
+    cfg = cfg.replace('text_model = "auto"', 'text_model = "multinomial"').replace('alpha_text = "auto"',
+                                                                                  "alpha_text = 1.0")
+    (root / "triage.toml").write_text(cfg, encoding="utf-8")
+    pd.read_csv(ROOT / "demo_corpus" / "voltwren_tickets.csv").head(1200).to_csv(root / "t.csv", index=False)
+    with Workspace.open(root) as ws:
+        ws.import_file(root / "t.csv")
+        ws.train()
+    return root
+
+
+def test_a_hand_set_cutoff_routes_at_once_and_survives_a_restart(trained: Path, tmp_path: Path) -> None:
+    root = tmp_path / "ws"
+    shutil.copytree(trained, root)
+    with Workspace.open(root) as ws:
+        before = ws.active_version.version
+        recs = ws.store.labelled_items()[:300]
+        held_before = sum(d["held"] for d in ws.decide_records(recs))
+        mv = ws.set_cutoffs({q: 0.0 for q in ws.model.queues if q != "safety"}, by="dana")
+        assert mv.version == before + 1 and mv.kind == "adopt" and "dana" in mv.note
+        decisions = ws.decide_records(recs)
+        # with a zero cutoff only the safeguards hold an item: the never-auto queue and the watch rules
+        assert all(d["flag"] is not None for d in decisions if d["held"])
+        assert sum(d["held"] for d in decisions) < held_before
+    with Workspace.open(root) as ws:
+        assert ws.active_version.version == before + 1
+        assert ws.decide_records(recs) == decisions
+        ws.activate(before)
+        assert sum(d["held"] for d in ws.decide_records(recs)) == held_before
+
+
+def test_a_never_auto_queue_takes_no_cutoff_and_values_are_checked(trained: Path, tmp_path: Path) -> None:
+    root = tmp_path / "ws"
+    shutil.copytree(trained, root)
+    with Workspace.open(root) as ws:
+        with pytest.raises(WorkspaceError, match="never-auto"):
+            ws.set_cutoffs({"safety": 0.5})
+        with pytest.raises(WorkspaceError, match="between 0 and 1"):
+            ws.set_cutoffs({"billing": 1.5})
+        with pytest.raises(WorkspaceError, match="unknown queue"):
+            ws.set_cutoffs({"nowhere": 0.5})
