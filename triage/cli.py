@@ -541,9 +541,12 @@ def cmd_ui(args: argparse.Namespace) -> int:
 
 
 def cmd_serve(args: argparse.Namespace) -> int:
+    import os
+
     from triage.service import serve
 
-    serve(args.workspace, host=args.host, port=args.port, token=args.token)
+    token = args.token or os.environ.get("TRIAGE_TOKEN") or None  # the environment keeps it out of `ps`
+    serve(args.workspace, host=args.host, port=args.port, token=token)
     return 0
 
 
@@ -615,7 +618,7 @@ def build_parser() -> argparse.ArgumentParser:
     sp = add("serve", cmd_serve, "serve routing over HTTP (loopback by default)")
     sp.add_argument("--host", default="127.0.0.1", help="address to bind (a token is required off loopback)")
     sp.add_argument("--port", type=int, default=8477, help="port (default 8477)")
-    sp.add_argument("--token", help="bearer token that clients must send")
+    sp.add_argument("--token", help="bearer token that clients must send (better: set TRIAGE_TOKEN)")
     return p
 
 
