@@ -620,3 +620,19 @@ def test_store_imports_no_numerics_or_front_ends() -> None:
     )
     out = subprocess.run([sys.executable, "-c", script], cwd=REPO, capture_output=True, text=True, check=True)
     assert out.stdout.strip() == ""
+
+
+def test_a_non_durable_transaction_commits_and_restores_full_sync(tmp_path: Path) -> None:
+    """SQLite documents synchronous=NORMAL as crash-safe in WAL mode (sqlite.org/pragma.html#pragma_synchronous);
+    the store uses it only inside `transaction(durable=False)` and returns to FULL (2) afterwards."""
+    with Store.open(tmp_path / "t.db") as store:
+        with store.transaction(durable=False):
+            assert store.pragma("synchronous") == 1
+            store.import_items([ItemRecord("n1", {"body": "x"}, "billing", None)], source="test")
+        assert store.pragma("synchronous") == 2
+        assert store.count_items() == 1
+        with pytest.raises(RuntimeError), store.transaction(durable=False):
+            store.import_items([ItemRecord("n2", {"body": "y"}, "billing", None)], source="test")
+            raise RuntimeError("boom")
+        assert store.pragma("synchronous") == 2
+        assert store.get_item("n2") is None

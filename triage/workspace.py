@@ -549,7 +549,8 @@ class Workspace:
         rows = [Decision(item_id=d["id"], model_version=d["model_version"], queue=d["queue"],
                          suggested=d["suggested"], confidence=d["confidence"], held=d["held"],
                          runner_up=d["runner_up"], evidence=d["evidence"]) for d in decisions]
-        with self.store.transaction():
+        # decisions can be made again from the stored items: a power cut may lose the newest batch, a crash not
+        with self.store.transaction(durable=False):
             self.store.import_items([ItemRecord(r.item_id, r.fields, None, r.arrived_at) for r in records],
                                     source=source)
             batch_id = self.store.record_batch(source, rows, summary)

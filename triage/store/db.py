@@ -203,14 +203,25 @@ class Store:
         return None if row is None else row[0]
 
     @contextmanager
-    def transaction(self) -> Iterator[Store]:
+    def transaction(self, *, durable: bool = True) -> Iterator[Store]:
         """One BEGIN IMMEDIATE ... COMMIT; any exception rolls everything back. Nested use joins the outer one.
 
         The write lock is taken at BEGIN (not at the first write) so two processes cannot both read,
         then both try to write and deadlock; the lock also keeps other threads of this process out.
+        `durable=False` commits with synchronous=NORMAL: in WAL mode that survives a crash of the process but
+        may lose the newest commits on a power cut, and it saves an fsync per commit. For routing decisions,
+        which can be recomputed; never for corrections or model versions.
         """
         with self._lock:
             self._check_open()
+            if not self._depth and not durable:
+                self._conn.execute("PRAGMA synchronous=NORMAL")
+                try:
+                    with self.transaction() as store:
+                        yield store
+                finally:
+                    self._conn.execute("PRAGMA synchronous=FULL")
+                return
             if self._depth:
                 self._depth += 1
                 try:
