@@ -86,9 +86,9 @@ def test_every_view_shows_the_workspace(workspace_path: Path) -> None:
         await pilot.press("3")
         await settle(app, pilot)
         sv = app.query_one(ScorecardView)
-        assert sv.holdout is not None
+        assert sv.meas is not None
         assert app.query_one("#queue-table", DataTable).row_count == len(sv.card.queues)
-        # the per-item re-scoring reproduces the stored scorecard of the active version exactly
+        # the workspace's own measurement on unchanged labels reproduces the stored scorecard exactly
         stored = ws.active_version.scorecard
         assert sv.card.n == stored["n"]
         assert sv.card.matrix == stored["matrix"]
@@ -173,7 +173,7 @@ def test_changing_a_cutoff_moves_precision_and_coverage(workspace_path: Path) ->
         assert sv.card.coverage > total_before
         assert after.precision != before.precision or after.routed != before.routed
         row = table.get_row(q)
-        assert row[2] == f"{sv.cutoffs[q]:.2f}"
+        assert str(row[2]) == f"{sv.cutoffs[q]:.2f}*"  # the star marks a what-if cutoff
         assert "what-if" in text_of(app.query_one("#score-summary", Static))
         # raising it above every confidence routes nothing
         for _ in range(100):

@@ -32,7 +32,7 @@ WIDE = 140
 
 VIEWS: list[tuple[str, str, type[View], str]] = [
     ("overview", "1 Overview", OverviewView, "items, queues, the active model, drift"),
-    ("models", "2 Models", ModelsView, "model versions; train, cancel, activate"),
+    ("models", "2 Models", ModelsView, "model versions; train, cancel, activate; the settings grid"),
     ("scorecard", "3 Scorecard", ScorecardView, "confusion matrix, per-queue figures, what-if cutoffs"),
     ("incoming", "4 Incoming", IncomingView, "the latest batch's decisions and their evidence"),
     ("review", "5 Review", ReviewView, "held items and likely misroutes; send to a queue, undo"),
@@ -52,6 +52,8 @@ class TriageCommands(Provider):
         out += [
             ("Train a new model version", app.action_train, "runs in the background; x on Models cancels"),
             ("Cancel the training run", app.action_cancel_training, "the active model stays as it is"),
+            ("Run the settings grid", app.action_grid, "cross-validates every setting; x on Models cancels"),
+            ("Save the what-if cutoffs", app.action_save_cutoffs, "as a new model version, after a confirmation"),
             ("Undo the newest correction", app.action_undo, "journaled and learned like any correction"),
             ("Re-score the held-out items", app.action_rescore, "scorecard with the current labels"),
             ("Key list", app.action_help, "every key of every view"),
@@ -136,6 +138,14 @@ class TriageApp(App[None]):
 
     def action_cancel_training(self) -> None:
         self.models_view().action_cancel_training()
+
+    def action_grid(self) -> None:
+        self.action_show("models")
+        self.models_view().action_grid()
+
+    def action_save_cutoffs(self) -> None:
+        self.action_show("scorecard")
+        self.query_one(ScorecardView).action_save_cutoffs()
 
     def action_undo(self) -> None:
         self.query_one(ReviewView).action_undo()

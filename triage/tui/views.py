@@ -7,7 +7,7 @@ change them: every change goes through Workspace.train / activate / correct / un
 from __future__ import annotations
 
 import threading
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -22,11 +22,11 @@ from textual.containers import Container, Horizontal, VerticalScroll
 from textual.widget import Widget
 from textual.widgets import DataTable, Input, Label, OptionList, ProgressBar, Select, Static
 from textual.widgets.option_list import Option
-from textual.worker import Worker, WorkerState
+from textual.worker import Worker, WorkerState, get_current_worker
 
-from triage.core.metrics import Scorecard, precision_coverage_curve, scorecard
-from triage.core.model import NaiveBayes
-from triage.core.routing import decide
+from triage import tuning
+from triage.core.metrics import Scorecard
+from triage.core.model import ModelSpec
 from triage.tui.messages import LabelsChanged, ModelChanged
 from triage.tui.widgets import (
     ConfirmScreen,
@@ -39,13 +39,15 @@ from triage.tui.widgets import (
     shade,
     text_plot,
 )
-from triage.workspace import HOLDOUT_SHARE, Cancelled, Workspace, WorkspaceError
+from triage.tuning import GridRow
+from triage.workspace import Cancelled, Measurement, Workspace
 
 PAGE_ROWS = 200
 SCAN_CHUNK = 2000
 REVIEW_LIMIT = 500
 MISROUTE_CONFIDENCE = 0.9
 CUTOFF_STEP = 0.01
+CURVE_POINTS = 50
 BY = "tui"
 
 
@@ -145,31 +147,60 @@ class OverviewView(View):
 
 
 # ======================================================================================== 2. models
+def grid_cells(row: GridRow, names: list[str]) -> list[str]:
+    """One settings-grid row as table cells (weights in the order of the text fields)."""
+    weights = "/".join(f"{row.text_weights.get(n, 1.0):g}" for n in names)
+    return [row.text_model, f"{row.alpha_text:g}", "on" if row.bigrams else "off", "on" if row.fields else "off",
+            weights, "on" if row.transforms else "off", pct(row.accuracy), num(row.macro_f1, 3),
+            num(row.log_loss, 3), pct(row.coverage)]
+
+
+def same_setting(row: GridRow, spec: ModelSpec, weights: dict[str, float]) -> bool:
+    """Whether a grid row is the setting a model was fitted with (fields on: a fitted model always has them)."""
+    return (row.text_model == spec.text_model and row.alpha_text == spec.alpha_text and row.bigrams == spec.bigrams
+            and row.transforms == spec.tf_log == spec.idf == spec.length_norm
+            and row.fields and row.text_weights == weights)
+
+
 class ModelsView(View):
-    """Model versions; train (in a thread, cancellable) and activate (after a confirmation)."""
+    """Model versions; train (in a thread, cancellable) and activate (after a confirmation); the settings grid
+    (cross-validated, cancellable) and adopting one of its rows into triage.toml."""
 
     main_id = "models-table"
+    GRID_FOLDS = 3
     BINDINGS = [
         Binding("t", "train", "Train", id="models.train", tooltip="Train a new model version on every label"),
-        Binding("x", "cancel_training", "Cancel", id="models.cancel", tooltip="Stop the running training"),
+        Binding("x", "cancel_training", "Cancel", id="models.cancel",
+                tooltip="Stop the running training or settings grid"),
         Binding("a", "activate", "Activate", id="models.activate", tooltip="Make the selected version active"),
+        Binding("g", "grid", "Grid", id="models.grid",
+                tooltip="Cross-validate every setting of the grid (text model, alpha, bigrams, fields, weights)"),
+        Binding("s", "adopt", "Adopt", id="models.adopt",
+                tooltip="Write the selected grid row's settings into triage.toml (asks first)"),
     ]
 
     def __init__(self, ws: Workspace, **kw: Any) -> None:
         super().__init__(ws, **kw)
         self.cancel_flag = threading.Event()
         self.last_outcome = ""
+        self.grid_rows: list[GridRow] = []
+        self.grid_folds = self.GRID_FOLDS
 
     def compose(self) -> ComposeResult:
-        yield Label("t trains a new version · x cancels it · a activates the selected version", classes="hint")
+        yield Label("t train · x cancel · a activate version · g settings grid · s adopt grid row", classes="hint")
         with Horizontal(id="train-row"):
             yield ProgressBar(total=100, show_eta=False, id="train-progress")
             yield Label("idle", id="train-stage")
         yield DataTable(id="models-table", cursor_type="row", zebra_stripes=True)
+        yield Label("settings grid: g runs it (cross-validated on every label)", id="grid-title")
+        yield DataTable(id="grid-table", cursor_type="row", zebra_stripes=True)
 
     def on_mount(self) -> None:
         t = self.query_one("#models-table", DataTable)
         t.add_columns("", "version", "kind", "created (UTC)", "accuracy", "coverage", "note")
+        g = self.query_one("#grid-table", DataTable)
+        g.add_columns("", "text model", "alpha", "bigrams", "fields", "weights", "transforms", "accuracy",
+                      "macro-F1", "log loss", "auto-routed")
         self.reload()
 
     def reload(self) -> None:
@@ -182,24 +213,42 @@ class ModelsView(View):
                       pct(card.get("accuracy")), pct(card.get("coverage")), mv.note, key=str(mv.version))
         if t.row_count:
             t.move_cursor(row=min(max(row, 0), t.row_count - 1))
+        if self.grid_rows:
+            self.show_grid()
 
-    # ----- training -----
-    def action_train(self) -> None:
-        if self.training:
-            self.notify("a training run is already going; x cancels it")
-            return
-        self.cancel_flag.clear()
-        self.query_one("#train-progress", ProgressBar).update(progress=0)
-        self.query_one("#train-stage", Label).update("starting")
-        self.run_training()
-
+    # ----- background runs: training and the settings grid share the progress bar and x -----
     @property
     def training(self) -> bool:
-        return any(w.state in (WorkerState.PENDING, WorkerState.RUNNING) for w in self.app.workers if w.group == "train")
+        return self._group_running("train")
+
+    @property
+    def gridding(self) -> bool:
+        return self._group_running("grid")
+
+    def _group_running(self, group: str) -> bool:
+        return any(w.state in (WorkerState.PENDING, WorkerState.RUNNING) for w in self.app.workers if w.group == group)
+
+    def _busy(self) -> bool:
+        if self.training or self.gridding:
+            what = "a training run" if self.training else "the settings grid"
+            self.notify(f"{what} is already going; x cancels it")
+            return True
+        return False
+
+    def _start(self, stage: str) -> None:
+        self.cancel_flag.clear()
+        self.query_one("#train-progress", ProgressBar).update(progress=0)
+        self.query_one("#train-stage", Label).update(stage)
+
+    def action_train(self) -> None:
+        if self._busy():
+            return
+        self._start("starting")
+        self.run_training()
 
     def action_cancel_training(self) -> None:
-        if not self.training:
-            self.notify("no training is running")
+        if not (self.training or self.gridding):
+            self.notify("nothing is running")
             return
         self.cancel_flag.set()
         self.query_one("#train-stage", Label).update("cancelling at the next step…")
@@ -232,9 +281,105 @@ class ModelsView(View):
             self.query_one("#train-progress", ProgressBar).update(progress=0)
 
     def on_worker_state_changed(self, event: Worker.StateChanged) -> None:
-        if event.worker.group == "train" and event.state == WorkerState.ERROR:
-            self.query_one("#train-stage", Label).update("training failed")
-            _err(self, event.worker.error or Exception("training failed"))
+        if event.worker.group in ("train", "grid") and event.state == WorkerState.ERROR:
+            what = "training" if event.worker.group == "train" else "the settings grid"
+            self.last_outcome = f"{what} failed"
+            self.query_one("#train-stage", Label).update(self.last_outcome)
+            _err(self, event.worker.error or Exception(self.last_outcome))
+
+    # ----- the settings grid -----
+    def action_grid(self) -> None:
+        if self._busy():
+            return
+        self._start(f"settings grid: {self.grid_folds}-fold cross-validation of every setting")
+        self.run_grid()
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="grid")
+    def run_grid(self) -> list[GridRow] | None:
+        def progress(stage: str, fraction: float) -> None:
+            if self.cancel_flag.is_set():
+                raise Cancelled("settings grid cancelled; triage.toml is unchanged")
+            self.app.call_from_thread(self._progress, stage, fraction)
+
+        try:
+            rows = tuning.run_grid(self.ws, folds=self.grid_folds, progress=progress)
+        except Cancelled as exc:
+            self.app.call_from_thread(self._grid_done, str(exc), None)
+            return None
+        self.app.call_from_thread(self._grid_done, f"settings grid: {len(rows)} settings, best first", rows)
+        return rows
+
+    def _grid_done(self, what: str, rows: list[GridRow] | None) -> None:
+        self.last_outcome = what
+        self.query_one("#train-stage", Label).update(what)
+        self.notify(what)
+        if rows is None:
+            self.query_one("#train-progress", ProgressBar).update(progress=0)
+            return
+        self.grid_rows = rows
+        self.show_grid()
+        g = self.query_one("#grid-table", DataTable)
+        g.move_cursor(row=0)
+        g.focus()
+
+    def show_grid(self) -> None:
+        g = self.query_one("#grid-table", DataTable)
+        row = g.cursor_row
+        g.clear()
+        names = [f.name for f in self.ws.config.schema.text_fields]
+        model = self.ws.model
+        weights = {f.name: float(f.weight) for f in model.encoder.schema.text_fields} if model is not None else {}
+        for i, r in enumerate(self.grid_rows):
+            mark = "● model" if model is not None and same_setting(r, model.spec, weights) else ""
+            g.add_row(mark, *grid_cells(r, names), key=str(i))
+        g.set_class(bool(self.grid_rows), "filled")
+        if g.row_count:
+            g.move_cursor(row=min(max(row, 0), g.row_count - 1))
+        self.query_one("#grid-title", Label).update(
+            f"settings grid: {len(self.grid_rows)} settings, {self.grid_folds}-fold, best first by auto-routed at "
+            f"each queue's target, then macro-F1 · weights {'/'.join(names)} · s adopts the selected row")
+
+    def selected_grid_row(self) -> GridRow | None:
+        g = self.query_one("#grid-table", DataTable)
+        if not g.row_count or not self.grid_rows:
+            return None
+        return self.grid_rows[int(g.coordinate_to_cell_key((g.cursor_row, 0)).row_key.value or 0)]
+
+    def action_adopt(self) -> None:
+        row = self.selected_grid_row()
+        if row is None:
+            self.notify("no settings grid yet: g runs it")
+            return
+        names = [f.name for f in self.ws.config.schema.text_fields]
+        weights = ", ".join(f"{n} {row.text_weights.get(n, 1.0):g}" for n in names)
+        transforms = "on" if row.transforms else "off"
+        note = "" if row.fields else "\n(This row leaves the fields out; that is not a setting: they stay in.)"
+
+        def answer(yes: bool | None) -> None:
+            if yes:
+                self.adopt(row)
+
+        self.app.push_screen(ConfirmScreen(
+            f"Write this setting into triage.toml?\n  text model {row.text_model}, alpha {row.alpha_text:g}, "
+            f"bigrams {'on' if row.bigrams else 'off'}, transforms {transforms}\n  text weights {weights}{note}\n"
+            "The active model stays as it is until you train."), answer)
+
+    def adopt(self, row: GridRow) -> None:
+        try:
+            tuning.adopt(self.ws, row)
+        except Exception as exc:  # noqa: BLE001 - shown to the user
+            _err(self, exc)
+            return
+        self.last_outcome = f"triage.toml now uses {row.text_model}, alpha {row.alpha_text:g}: run training to use it"
+        self.query_one("#train-stage", Label).update(self.last_outcome)
+        self.notify(self.last_outcome)
+
+        def train_now(yes: bool | None) -> None:
+            if yes:
+                self.action_train()
+
+        self.app.push_screen(ConfirmScreen("Settings written to triage.toml. Train a new model version with them "
+                                           "now? (t trains later)"), train_now)
 
     # ----- activating -----
     def action_activate(self) -> None:
@@ -263,45 +408,14 @@ class ModelsView(View):
 
 
 # ======================================================================================== 3. scorecard
-@dataclass
-class Holdout:
-    """Held-out predictions of the active model's settings: the newest items, scored by a model of the older."""
-
-    y_true: list[str]
-    suggested: list[str]
-    confidence: np.ndarray
-    queues: list[str]
-    never_auto: frozenset[str]
-    targets: dict[str, float]
-    cutoffs: dict[str, float | None] = field(default_factory=dict)
-
-    def card(self, cutoffs: dict[str, float | None]) -> Scorecard:
-        return scorecard(self.y_true, self.suggested, self.confidence, self.queues, cutoffs,
-                         never_auto=self.never_auto, targets=self.targets)
-
-
-def holdout_predictions(ws: Workspace) -> Holdout:
-    """Reproduce the measurement's held-out split: fit the active settings on the older items (by arrival) and
-    route the newest HOLDOUT_SHARE with the active calibration, so cutoffs can be tried on each item."""
-    model, policy = ws.model, ws.policy
-    if model is None or policy is None:
-        raise WorkspaceError("no model yet: train one first (2, then t)")
-    recs = ws.store.labelled_items()
-    n_hold = max(1, int(round(len(recs) * HOLDOUT_SHARE)))
-    older, newer = recs[: len(recs) - n_hold], recs[len(recs) - n_hold:]
-    fitted = NaiveBayes.fit(ws.config.schema, [r.fields for r in older], [r.label or "" for r in older], model.spec)
-    batch = fitted.encoder.transform([r.fields for r in newer], allow_missing=True)
-    verdicts = decide(policy.calibrated(fitted.joint_log_likelihood(batch)), fitted.queues, policy)
-    queues = sorted(set(fitted.queues) | {r.label for r in newer if r.label})
-    never = frozenset(ws.config.never_auto())
-    return Holdout([r.label or "" for r in newer], [v.suggested for v in verdicts],
-                   np.array([v.confidence for v in verdicts]), queues, never,
-                   {q: ws.config.policy(q).target_precision for q in queues},
-                   {q: policy.cutoff(q) for q in queues})
+def cutoff_text(c: float | None) -> str:
+    return "none" if c is None else f"{c:.2f}"
 
 
 class ScorecardView(View):
-    """Confusion matrix, per-queue figures, and what-if cutoffs with a precision/coverage plot."""
+    """The workspace's own measurement (`Workspace.evaluate`, what `triage evaluate` prints): confusion matrix,
+    per-queue figures, what-if cutoffs re-scored on the same held-out items (`Measurement.rescore`), a
+    precision/coverage plot, and saving the what-if cutoffs as a new model version."""
 
     main_id = "queue-table"
     BINDINGS = [
@@ -309,6 +423,8 @@ class ScorecardView(View):
                 key_display="+"),
         Binding("minus,underscore", "nudge(-1)", "Cutoff −", id="score.down",
                 tooltip="Lower the selected cutoff by 0.01", key_display="-"),
+        Binding("w", "save_cutoffs", "Save", id="score.save",
+                tooltip="Save the what-if cutoffs as a new model version (asks first)"),
         Binding("r", "reset", "Reset", id="score.reset", tooltip="Back to the active model's cutoffs"),
         Binding("e", "remeasure", "Re-score", id="score.remeasure",
                 tooltip="Score the held-out items again with the current labels"),
@@ -316,8 +432,11 @@ class ScorecardView(View):
 
     def __init__(self, ws: Workspace, **kw: Any) -> None:
         super().__init__(ws, **kw)
-        self.holdout: Holdout | None = None
-        self.cutoffs: dict[str, float | None] = {}
+        self.meas: Measurement | None = None
+        self.measured_for: int | None = None  # the active version the measurement and `saved` belong to
+        self.saved: dict[str, float | None] = {}  # the active policy's cutoffs, per scorecard queue
+        self.cutoffs: dict[str, float | None] = {}  # the what-if cutoffs on screen
+        self.curves: dict[str, dict[str, list[float]]] = {}
         self.card: Scorecard | None = None
 
     def compose(self) -> ComposeResult:
@@ -335,29 +454,68 @@ class ScorecardView(View):
 
     def reload(self) -> None:
         mv = self.ws.active_version
-        if mv is not None and mv.scorecard and self.card is None:
-            self.card = Scorecard.from_dict(mv.scorecard)
+        if mv is None:
+            self.meas, self.card, self.measured_for = None, None, None
+            self.show()
+            return
+        if self.meas is not None and mv.version == self.measured_for:
+            self.saved = self._active_cutoffs(self.meas)  # e.g. the cutoffs just saved: same labels, no refit
+            self.show()
+            return
+        if self.card is None and mv.scorecard:
+            self.card = Scorecard.from_dict(mv.scorecard)  # stored figures until the measurement arrives
             self.cutoffs = {q.queue: q.cutoff for q in self.card.per_queue}
             self.show()
         self.measure()
 
-    @work(thread=True, exclusive=True, exit_on_error=False, group="score")
-    def measure(self) -> Holdout | None:
-        if self.ws.model is None:
-            return None
-        h = holdout_predictions(self.ws)
-        self.app.call_from_thread(self._measured, h)
-        return h
+    def _active_cutoffs(self, meas: Measurement) -> dict[str, float | None]:
+        policy = self.ws.policy
+        return {q: policy.cutoff(q) if policy is not None and q in meas.model_queues else None
+                for q in meas.scorecard.queues}
 
-    def _measured(self, h: Holdout) -> None:
-        self.holdout = h
-        self.cutoffs = dict(h.cutoffs)
-        self.card = h.card(self.cutoffs)
+    @property
+    def measuring(self) -> bool:
+        return any(w.state in (WorkerState.PENDING, WorkerState.RUNNING) for w in self.app.workers
+                   if w.group == "score")
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="score")
+    def measure(self) -> Measurement | None:
+        worker = get_current_worker()
+        mv = self.ws.active_version
+        if self.ws.model is None or mv is None:
+            return None
+        meas = self.ws.evaluate()
+        curves = meas.precision_coverage(CURVE_POINTS)
+        if not worker.is_cancelled:
+            self.app.call_from_thread(self._measured, meas, curves, mv.version)
+        return meas
+
+    def _measured(self, meas: Measurement, curves: dict[str, dict[str, list[float]]], version: int) -> None:
+        pending = {q: c for q, c in self.cutoffs.items() if self.meas is not None and c != self.saved.get(q)}
+        self.meas, self.curves, self.measured_for = meas, curves, version
+        self.saved = self._active_cutoffs(meas)
+        # unsaved what-if cutoffs survive a re-measure (a correction elsewhere), for queues the model still has
+        self.cutoffs = dict(self.saved)
+        self.cutoffs.update({q: c for q, c in pending.items() if q in meas.model_queues})
+        self.rescore()
+
+    def rescore(self) -> None:
+        """The figures at the cutoffs on screen: the measurement's own scorecard at its own cutoffs (exactly what
+        `triage evaluate` prints), else the same held-out rows re-scored."""
+        assert self.meas is not None
+        own = {q: self.meas.policy.cutoff(q) for q in self.meas.scorecard.queues}
+        self.card = self.meas.scorecard if self.cutoffs == own else self.meas.rescore(dict(self.cutoffs))
         self.show()
+
+    def on_worker_state_changed(self, event: Worker.StateChanged) -> None:
+        if event.worker.group in ("score", "cutoffs") and event.state == WorkerState.ERROR:
+            _err(self, event.worker.error or Exception("scoring failed"))
+            self.show()
 
     def action_remeasure(self) -> None:
         self.notify("scoring the held-out items again…")
         self.measure()
+        self.show()
 
     def selected_queue(self) -> str | None:
         t = self.query_one("#queue-table", DataTable)
@@ -367,45 +525,100 @@ class ScorecardView(View):
 
     def action_nudge(self, sign: int) -> None:
         q = self.selected_queue()
-        if q is None or self.holdout is None:
+        if q is None or self.meas is None:
             self.notify("the held-out items are still being scored")
             return
-        if q in self.holdout.never_auto:
+        if q in self.meas.policy.never_auto:
             self.notify(f"{q} is never auto-routed: a person reviews every item, whatever the cutoff")
+            return
+        if q not in self.meas.model_queues:
+            self.notify(f"{q} is not one of the model's queues: train to add it")
             return
         current = self.cutoffs.get(q)
         start = current if current is not None else 1.0
-        new = round(min(1.0, max(0.0, start + sign * CUTOFF_STEP)), 4)
-        self.cutoffs[q] = new
-        self.card = self.holdout.card(self.cutoffs)
-        self.show()
+        self.cutoffs[q] = round(min(1.0, max(0.0, start + sign * CUTOFF_STEP)), 4)
+        self.rescore()
 
     def action_reset(self) -> None:
-        if self.holdout is not None:
-            self.cutoffs = dict(self.holdout.cutoffs)
-            self.card = self.holdout.card(self.cutoffs)
-            self.show()
+        if self.meas is not None:
+            self.cutoffs = dict(self.saved)
+            self.rescore()
+
+    @property
+    def changed(self) -> dict[str, float | None]:
+        """The what-if cutoffs that differ from the active version's."""
+        if self.meas is None:
+            return {}
+        return {q: c for q, c in self.cutoffs.items() if c != self.saved.get(q)}
+
+    def action_save_cutoffs(self) -> None:
+        if self.meas is None:
+            self.notify("the held-out items are still being scored")
+            return
+        changed = self.changed
+        if not changed:
+            self.notify("these are the active version's cutoffs: nothing to save (+ and - try others)")
+            return
+        before = self.card
+        lines = "\n".join(f"  {q}: {cutoff_text(self.saved.get(q))} -> {cutoff_text(c)}"
+                          for q, c in sorted(changed.items()))
+        figures = (f"\nOn the held-out items: coverage {pct(before.coverage)}, auto precision "
+                   f"{pct(before.auto_precision)}." if before is not None else "")
+        version = self.measured_for
+
+        def answer(yes: bool | None) -> None:
+            if yes:
+                self.save_cutoffs(changed)
+
+        self.app.push_screen(ConfirmScreen(
+            f"Save these cutoffs as a new model version?\n{lines}{figures}\nNew items are routed with them; "
+            f"activating version {version} again undoes it."), answer)
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="cutoffs")
+    def save_cutoffs(self, changed: dict[str, float | None]) -> int:
+        mv = self.ws.set_cutoffs(changed, by=BY)
+        self.app.call_from_thread(self._saved, mv.version, changed)
+        return mv.version
+
+    def _saved(self, version: int, changed: dict[str, float | None]) -> None:
+        self.measured_for = version  # same labels and counts: the measurement still holds
+        self.saved.update(changed)
+        self.show()
+        self.notify(f"cutoffs saved: version {version} is active")
+        self.post_message(ModelChanged(version, "cutoffs saved"))
 
     def show(self) -> None:
         card = self.card
+        summary = self.query_one("#score-summary", Static)
         if card is None:
-            self.query_one("#score-summary", Static).update("no scorecard yet: train a model (2, then t)")
+            summary.update("no scorecard yet: train a model (2, then t)")
             return
-        changed = self.holdout is not None and any(self.cutoffs.get(q) != self.holdout.cutoffs.get(q)
-                                                   for q in card.queues)
         s = Text()
         s.append(f"held-out items {card.n}   accuracy {pct(card.accuracy)}   coverage {pct(card.coverage)}   "
                  f"auto precision {pct(card.auto_precision)}   macro F1 {num(card.macro_f1)}", style="bold")
-        if self.holdout is None:
+        if self.meas is None:
             s.append("   (stored figures; scoring each item…)", style="dim")
-        elif changed:
-            s.append("   what-if cutoffs: not saved (r resets)", style="bold yellow")
-        self.query_one("#score-summary", Static).update(s)
+        else:
+            if self.changed:
+                s.append(f"\nwhat-if cutoffs ({len(self.changed)} changed): not saved · w saves · r resets",
+                         style="bold yellow")
+            elif self.measuring:
+                s.append("   (scoring again…)", style="dim")
+            own = [q for q in card.queues if self.saved.get(q) != self.meas.policy.cutoff(q)]
+            if own and not self.changed:
+                s.append(f"\nat the active version's cutoffs; re-solved on these labels they would differ for "
+                         f"{', '.join(own)}", style="dim")
+        summary.update(s)
         t = self.query_one("#queue-table", DataTable)
         row = t.cursor_row
         t.clear()
         for qs in card.per_queue:
-            cut = "never auto" if qs.never_auto else num(self.cutoffs.get(qs.queue, qs.cutoff))
+            if qs.never_auto:
+                cut: str | Text = "never auto"
+            else:
+                c = self.cutoffs.get(qs.queue, qs.cutoff)
+                moved = self.meas is not None and c != self.saved.get(qs.queue)
+                cut = Text(num(c) + ("*" if moved else ""), style="bold yellow" if moved else "")
             t.add_row(qs.queue, num(qs.target), cut, pct(qs.precision), pct(qs.recall), num(qs.f1), pct(qs.coverage),
                       pct(qs.held_share), str(qs.routed), str(qs.support), key=qs.queue)
         if t.row_count:
@@ -416,23 +629,19 @@ class ScorecardView(View):
     def show_plot(self) -> None:
         q = self.selected_queue()
         plot = self.query_one("#score-plot", Static)
-        if q is None or self.holdout is None:
+        if q is None or self.meas is None or self.card is None:
             plot.update(Text("precision vs coverage: waiting for the held-out scores", style="dim"))
             return
-        h = self.holdout
-        sug = np.array(h.suggested)
-        mine = sug == q
-        ok = np.array(h.y_true)[mine] == q
-        _, prec, cov, _ = precision_coverage_curve(h.confidence[mine], ok)
-        qs = next(s for s in self.card.per_queue if s.queue == q) if self.card else None
+        curve = self.curves.get(q, {"precision": [], "coverage": []})
+        qs = next((s for s in self.card.per_queue if s.queue == q), None)
         mark = (qs.coverage, qs.precision) if qs is not None and qs.routed else None
-        title = Text(f"{q}: precision vs coverage over its {int(mine.sum())} suggested items\n", style="bold")
-        plot.update(Group(title, text_plot(list(cov), list(prec), mark, width=36, height=7)))
+        n = qs.routed + qs.held if qs is not None else 0
+        title = Text(f"{q}: precision vs coverage over its {n} suggested items\n", style="bold")
+        plot.update(Group(title, text_plot(curve["coverage"], curve["precision"], mark, width=36, height=7)))
 
     def on_data_table_row_highlighted(self, event: DataTable.RowHighlighted) -> None:
         if event.data_table.id == "queue-table":
             self.show_plot()
-
 
 # ======================================================================================== detail panel
 class ItemDetail(VerticalScroll):
