@@ -10,6 +10,7 @@ import html
 import re
 import subprocess
 import sys
+import tomllib
 from io import StringIO
 from pathlib import Path
 
@@ -18,6 +19,7 @@ from rich.console import Console
 from textual import events
 from textual.widgets import DataTable, Static
 
+from triage import tuning
 from triage.tui.app import TriageApp, make_app
 from triage.tui.views import (
     FieldsView,
@@ -26,8 +28,9 @@ from triage.tui.views import (
     ModelsView,
     ReviewView,
     ScorecardView,
+    grid_cells,
 )
-from triage.tui.widgets import ConfirmScreen, HelpScreen, QueuePicker, marked_text, shade
+from triage.tui.widgets import ConfirmScreen, HelpScreen, QueuePicker, marked_text, pct, shade
 from triage.workspace import Workspace
 
 SIZE = (100, 32)
@@ -94,6 +97,8 @@ def test_every_view_shows_the_workspace(workspace_path: Path) -> None:
         assert sv.card.matrix == stored["matrix"]
         assert abs(sv.card.coverage - stored["coverage"]) < 1e-12
         assert abs(sv.card.auto_precision - stored["auto_precision"]) < 1e-12
+        # and it is what `triage evaluate` prints: the workspace's measurement, figure for figure
+        assert sv.card.to_dict() == ws.evaluate().scorecard.to_dict()
         assert "true \\ sugg." in text_of(app.query_one("#score-matrix", Static))
 
         await pilot.press("4")
@@ -193,6 +198,154 @@ def test_changing_a_cutoff_moves_precision_and_coverage(workspace_path: Path) ->
         assert abs(sv.card.coverage - total_before) < 1e-12
         # nothing was saved: the workspace's policy is untouched
         assert app.ws.policy.cutoff(q) == before.cutoff
+
+    run(go, workspace_path)
+
+
+def test_saving_what_if_cutoffs_makes_a_new_active_version(workspace_path: Path) -> None:
+    async def go(app: TriageApp, pilot) -> None:  # noqa: ANN001
+        ws = app.ws
+        await pilot.press("3")
+        await settle(app, pilot)
+        sv = app.query_one(ScorecardView)
+        table = app.query_one("#queue-table", DataTable)
+        version = ws.active_version.version
+        n_versions = len(ws.models())
+        # nothing changed: w has nothing to save and asks nothing
+        await pilot.press("w")
+        await pilot.pause()
+        assert not isinstance(app.screen, ConfirmScreen)
+        assert len(ws.models()) == n_versions
+        q = max((s for s in sv.card.per_queue if s.cutoff is not None and not s.never_auto),
+                key=lambda s: s.routed).queue
+        old = ws.policy.cutoff(q)
+        table.move_cursor(row=sv.card.queues.index(q))
+        await pilot.pause()
+        for _ in range(5):
+            await pilot.press("minus")
+        await pilot.pause()
+        new = round(old - 0.05, 4)
+        assert sv.cutoffs[q] == new
+        # the figures on screen are the measurement's own rescoring at these cutoffs
+        expected = sv.meas.rescore(dict(sv.cutoffs))
+        assert sv.card.to_dict() == expected.to_dict()
+        summary = text_of(app.query_one("#score-summary", Static))
+        assert f"coverage {pct(expected.coverage)}" in summary and "not saved" in summary
+        mine = next(s for s in expected.per_queue if s.queue == q)
+        assert table.get_row(q)[6] == pct(mine.coverage)
+        # a never-auto queue still refuses a change
+        table.move_cursor(row=sv.card.queues.index("safety"))
+        await pilot.pause()
+        await pilot.press("minus")
+        await pilot.pause()
+        assert sv.cutoffs["safety"] is None and set(sv.changed) == {q}
+        # the confirmation lists the change; no keeps everything as it is
+        await pilot.press("w")
+        await pilot.pause()
+        assert isinstance(app.screen, ConfirmScreen)
+        assert f"{q}: {old:.2f} -> {new:.2f}" in app.screen.question
+        await pilot.press("n")
+        await settle(app, pilot)
+        assert ws.active_version.version == version and len(ws.models()) == n_versions
+        await pilot.press("w")
+        await pilot.pause()
+        await pilot.press("y")
+        await settle(app, pilot)
+        mv = ws.store.active_model()
+        assert mv.version == ws.active_version.version == version + 1 and mv.kind == "adopt"
+        assert mv.config["policy"]["cutoffs"][q] == new
+        assert ws.policy.cutoff(q) == new
+        assert len(ws.models()) == n_versions + 1
+        # the screen follows: no "not saved", the same figures, models and overview show the new version
+        assert sv.changed == {} and sv.saved[q] == new
+        summary = text_of(app.query_one("#score-summary", Static))
+        assert "not saved" not in summary and f"coverage {pct(expected.coverage)}" in summary
+        assert sv.card.to_dict() == ws.evaluate().rescore(dict(sv.saved)).to_dict()
+        models = app.query_one("#models-table", DataTable)
+        assert models.row_count == n_versions + 1
+        top = models.get_row_at(0)
+        assert "active" in str(top[0]) and top[1] == str(version + 1) and top[2] == "adopt"
+        assert f"version {version + 1}" in text_of(app.query_one("#overview-model", Static))
+        # r now goes back to the saved cutoffs, and a fresh open routes with them
+        table.move_cursor(row=sv.card.queues.index(q))
+        await pilot.pause()
+        await pilot.press("minus")
+        await pilot.pause()
+        assert sv.changed == {q: round(new - 0.01, 4)}
+        await pilot.press("r")
+        await pilot.pause()
+        assert sv.cutoffs[q] == new and sv.changed == {}
+        with Workspace.open(ws.root) as again:
+            assert again.policy.cutoff(q) == new
+
+    run(go, workspace_path)
+
+
+def test_the_settings_grid_fills_its_table_and_a_row_is_adopted(workspace_path: Path) -> None:
+    async def go(app: TriageApp, pilot) -> None:  # noqa: ANN001
+        ws = app.ws
+        mv = app.query_one(ModelsView)
+        mv.grid_folds = 2
+        await pilot.press("2")
+        await pilot.pause()
+        # nothing to adopt before the grid has run
+        await pilot.press("s")
+        await pilot.pause()
+        assert not isinstance(app.screen, ConfirmScreen)
+        await pilot.press("g")
+        await settle(app, pilot)
+        expected = tuning.run_grid(ws, folds=2)
+        grid = app.query_one("#grid-table", DataTable)
+        assert len(mv.grid_rows) == grid.row_count == len(expected) > 1
+        names = [f.name for f in ws.config.schema.text_fields]
+        assert [str(c) for c in grid.get_row_at(0)[1:]] == grid_cells(expected[0], names)
+        assert mv.grid_rows == expected
+        assert f"{len(expected)} settings" in mv.last_outcome
+        assert app.query_one("#train-progress").progress == 100
+        # adopt a row with another text model than the active one
+        k = next(i for i, r in enumerate(expected) if r.text_model != ws.model.spec.text_model)
+        row = expected[k]
+        grid.move_cursor(row=k)
+        version = ws.active_version.version
+        await pilot.press("s")
+        await pilot.pause()
+        assert isinstance(app.screen, ConfirmScreen) and row.text_model in app.screen.question
+        await pilot.press("y")
+        await pilot.pause()
+        config = tomllib.loads((ws.root / "triage.toml").read_text(encoding="utf-8"))
+        assert config["model"]["text_model"] == row.text_model
+        assert config["model"]["alpha_text"] == row.alpha_text
+        assert "run training to use it" in mv.last_outcome
+        assert ws.active_version.version == version  # written, not yet trained
+        # the second question offers training with it now
+        assert isinstance(app.screen, ConfirmScreen) and "Train" in app.screen.question
+        await pilot.press("y")
+        await settle(app, pilot)
+        assert ws.active_version.version == version + 1
+        assert ws.model.spec.text_model == row.text_model and ws.model.spec.alpha_text == row.alpha_text
+
+    run(go, workspace_path)
+
+
+def test_cancelling_the_settings_grid_leaves_the_config(workspace_path: Path) -> None:
+    async def go(app: TriageApp, pilot) -> None:  # noqa: ANN001
+        ws = app.ws
+        before = (ws.root / "triage.toml").read_bytes()
+        n_versions = len(ws.models())
+        await pilot.press("2")
+        await pilot.pause()
+        for key in ("g", "x"):  # queued at once, as for training
+            app.post_message(events.Key(key, key))
+        await settle(app, pilot)
+        mv = app.query_one(ModelsView)
+        assert "cancelled" in mv.last_outcome
+        assert mv.grid_rows == [] and app.query_one("#grid-table", DataTable).row_count == 0
+        assert (ws.root / "triage.toml").read_bytes() == before
+        assert len(ws.models()) == n_versions
+        # s has no row to adopt
+        await pilot.press("s")
+        await pilot.pause()
+        assert not isinstance(app.screen, ConfirmScreen)
 
     run(go, workspace_path)
 
