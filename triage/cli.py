@@ -289,7 +289,11 @@ def cmd_route(args: argparse.Namespace) -> int:
                 (rejects if not hasattr(r, "item_id") else records).append(r)
             for rj in rejects:
                 err.print(describe_reject("<stdin>", rj), markup=False, soft_wrap=True)
-            decisions, batch = ws.route_records(records, source="<stdin>")
+            clash = ws.stored_with_other_fields(records)
+            for item_id in sorted(clash):
+                err.print(f"<stdin>: item {item_id!r} not routed: already stored with other field values "
+                          "(give a changed item a new id)", markup=False, soft_wrap=True)
+            decisions, batch = ws.route_records([r for r in records if r.item_id not in clash], source="<stdin>")
         else:
             decisions, result, batch = ws.route_file(args.file)
             for w in result.warnings[:25]:
@@ -317,6 +321,12 @@ def _follow(ws: Workspace, args: argparse.Namespace) -> int:
                 sys.stderr.flush()
                 continue
             ws.refresh_if_changed()
+            if ws.stored_with_other_fields([r]):
+                sys.stderr.write(json.dumps({"error": "already stored with other field values; give a changed "
+                                             "item a new id", "line": getattr(r, "row", None), "id": r.item_id,
+                                             "field": "id"}) + "\n")
+                sys.stderr.flush()
+                continue
             decisions, _ = ws.route_records([r], source="<follow>")
             sys.stdout.write(json.dumps(decisions[0], ensure_ascii=False) + "\n")
             sys.stdout.flush()
@@ -382,7 +392,10 @@ def cmd_models(args: argparse.Namespace) -> int:
 
 
 def cmd_cutoff(args: argparse.Namespace) -> int:
-    value = None if args.value.lower() in ("none", "off") else float(args.value)
+    try:
+        value = None if args.value.lower() in ("none", "off") else float(args.value)
+    except ValueError:
+        raise WorkspaceError(f"cutoff {args.value!r}: give a number between 0 and 1, or none") from None
     with _ws(args) as ws:
         mv = ws.set_cutoffs({args.queue: value}, by=args.by)
     if args.json:

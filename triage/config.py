@@ -47,7 +47,8 @@ class QueuePolicy:
     never_auto: bool = False  # every item predicted here is held for a human, whatever the confidence
     cutoff: float | None = None  # a fixed cutoff; None means: solved from held-out precision
     # words (prefixes, e.g. "burn" for burning/burnt) that hold any item mentioning them for a person,
-    # whatever the model says: a rule-based safeguard for never-auto queues
+    # whatever the model says: a rule-based safeguard for never-auto queues. An entry of several words
+    # ("carbon monoxide", "self-harm") matches an item that has every one of them.
     watch_words: tuple[str, ...] = ()
 
 
@@ -78,6 +79,22 @@ class Config:
 
 def _fail(path: Path | str, key: str, why: str) -> ConfigError:
     return ConfigError(f"{path}: [{key}] {why}")
+
+
+def _number(path: Path | str, key: str, value: Any, *, lo: float, hi: float, lo_open: bool = False) -> float:
+    """A number in [lo, hi] (or (lo, hi]), else an error naming the file and key."""
+    if isinstance(value, bool) or not isinstance(value, int | float):
+        raise _fail(path, key, f"must be a number, not {value!r}")
+    x = float(value)
+    if not (lo < x <= hi if lo_open else lo <= x <= hi):
+        raise _fail(path, key, f"must be in {'(' if lo_open else '['}{lo:g}, {hi:g}], not {value!r}")
+    return x
+
+
+def _flag(path: Path | str, key: str, value: Any) -> bool:
+    if not isinstance(value, bool):
+        raise _fail(path, key, f"must be true or false, not {value!r}")
+    return value
 
 
 def config_from_dict(data: dict[str, Any], path: Path | str = "triage.toml") -> Config:
@@ -120,8 +137,16 @@ def config_from_dict(data: dict[str, Any], path: Path | str = "triage.toml") -> 
         raise _fail(path, "model", f"unknown keys: {', '.join(sorted(unknown))}")
     if model.text_model not in (*TEXT_MODELS, "auto"):
         raise _fail(path, "model.text_model", f"is {model.text_model!r}; use auto or one of {', '.join(TEXT_MODELS)}")
-    if model.alpha_text != "auto" and (not isinstance(model.alpha_text, int | float) or model.alpha_text < 0):
-        raise _fail(path, "model.alpha_text", "must be 'auto' or a number >= 0")
+    # routing needs every queue's score finite, so smoothing must be > 0 here (the model core itself allows 0)
+    if model.alpha_text != "auto" and (isinstance(model.alpha_text, bool)
+                                       or not isinstance(model.alpha_text, int | float) or model.alpha_text <= 0):
+        raise _fail(path, "model.alpha_text", f"must be 'auto' or a number > 0, not {model.alpha_text!r}")
+    _number(path, "model.alpha_fields", model.alpha_fields, lo=0, hi=1e6, lo_open=True)
+    _flag(path, "model.bigrams", model.bigrams)
+    for key in ("min_count", "max_vocab", "max_token_chars"):
+        v = getattr(model, key)
+        if isinstance(v, bool) or not isinstance(v, int) or v < 1:
+            raise _fail(path, f"model.{key}", f"must be a whole number >= 1, not {v!r}")
     if model.prior not in ("fitted", "uniform"):
         raise _fail(path, "model.prior", "must be 'fitted' or 'uniform'")
     for key in ("tf_log", "idf", "length_norm"):
@@ -129,32 +154,37 @@ def config_from_dict(data: dict[str, Any], path: Path | str = "triage.toml") -> 
             raise _fail(path, f"model.{key}", "must be true or false")
 
     routing = data.get("routing", {})
-    target = float(routing.get("target_precision", DEFAULT_TARGET_PRECISION))
-    if not 0 < target <= 1:
-        raise _fail(path, "routing.target_precision", "must be in (0, 1]")
-    watch = float(routing.get("watch_probability", 0.10))
-    if not 0 < watch <= 1:
-        raise _fail(path, "routing.watch_probability", "must be in (0, 1]")
+    target = _number(path, "routing.target_precision", routing.get("target_precision", DEFAULT_TARGET_PRECISION),
+                     lo=0, hi=1, lo_open=True)
+    watch = _number(path, "routing.watch_probability", routing.get("watch_probability", 0.10), lo=0, hi=1,
+                    lo_open=True)
     queues: dict[str, QueuePolicy] = {}
     for qname, q in data.get("queues", {}).items():
         if not qname.strip():
             raise _fail(path, "queues", "a queue name is empty")
+        if not isinstance(q, dict):
+            raise _fail(path, f"queues.{qname}", "must be a table")
+        key = f"queues.{qname}"
         cutoff = q.get("cutoff")
         words = q.get("watch_words", [])
         if not isinstance(words, list) or not all(isinstance(w, str) and w.strip() for w in words):
-            raise _fail(path, f"queues.{qname}.watch_words", "must be a list of non-empty words")
+            raise _fail(path, f"{key}.watch_words", "must be a list of non-empty words")
         queues[qname] = QueuePolicy(
-            target_precision=float(q.get("target_precision", target)),
-            never_auto=bool(q.get("never_auto", False)),
-            cutoff=None if cutoff is None else float(cutoff),
-            watch_words=tuple(w.strip().casefold() for w in words),
+            target_precision=_number(path, f"{key}.target_precision", q.get("target_precision", target),
+                                     lo=0, hi=1, lo_open=True),
+            never_auto=_flag(path, f"{key}.never_auto", q.get("never_auto", False)),
+            cutoff=None if cutoff is None else _number(path, f"{key}.cutoff", cutoff, lo=0, hi=1),
+            watch_words=tuple(" ".join(w.split()).casefold() for w in words),
         )
+    max_text = dat.get("max_text_chars", 20_000)
+    if isinstance(max_text, bool) or not isinstance(max_text, int) or max_text < 1:
+        raise _fail(path, "data.max_text_chars", f"must be a whole number >= 1, not {max_text!r}")
     return Config(
         schema=schema,
         model=model,
         queues=queues,
         target_precision=target,
-        max_text_chars=int(dat.get("max_text_chars", 20_000)),
+        max_text_chars=max_text,
         watch_probability=watch,
     )
 

@@ -70,6 +70,14 @@ class Cancelled(WorkspaceError):
     """A long run was cancelled by the user; nothing was changed."""
 
 
+class _StaleVersion(Exception):
+    """Another process activated a model version while a correction was being committed."""
+
+
+class _AlreadyApplied(Exception):
+    """Another process applied the correction first."""
+
+
 @dataclass
 class Measurement:
     """An honest measurement of one model setting on the current labels."""
@@ -261,6 +269,8 @@ class Workspace:
         extra = manifest.get("extra", {})
         labels = dict(zip(extra.get("trained_ids", []), extra.get("trained_labels", []), strict=True))
         policy = RoutingPolicy.from_dict(mv.config.get("policy", extra.get("policy", {})))
+        # the config's never-auto queues always apply, even to a version trained before a queue was marked so
+        policy = replace(policy, never_auto=policy.never_auto | self.config.never_auto())
         active = _Active(mv, model, policy, labels, base, [])
         for cid in mv.config.get("corrections", []):
             self._learn_correction(active, self.store.get_correction(cid))
@@ -424,7 +434,9 @@ class Workspace:
                 raise Cancelled("training cancelled; the active model is unchanged")
 
         say("reading labelled items", 0.0)
-        recs = self._labelled()
+        with self._lock:  # the labels and the newest correction are read together
+            recs = self._labelled()
+            mark = max((c.id for c in self.store.corrections()), default=0)
         base = spec_from_config(self.config)
         selection: list[dict[str, Any]] = []
         m = self.config.model
@@ -455,12 +467,16 @@ class Workspace:
         model = NaiveBayes.fit(self.config.schema, items, labels, base)
         check()
         say("saving", 0.95)
-        version = self._save_trained(model, recs, measurement, selection, note or "trained", kind="train")
+        version = self._save_trained(model, recs, measurement, selection, note or "trained", kind="train",
+                                     corrections_after=mark)
         say("done", 1.0)
         return TrainReport(version, measurement, selection, len(recs), time.perf_counter() - t0)
 
     def _save_trained(self, model: NaiveBayes, recs: Sequence[ItemRecord], meas: Measurement,
-                      selection: list[dict[str, Any]], note: str, kind: str) -> ModelVersion:
+                      selection: list[dict[str, Any]], note: str, kind: str,
+                      corrections_after: int | None = None) -> ModelVersion:
+        """Save and activate a trained model. Corrections applied while it was fitting (id above
+        `corrections_after`) are learned on top of it, so none is lost to a training run."""
         ids = [r.item_id for r in recs]
         labels = [r.label or "" for r in recs]
         fp = fingerprint(ids, labels, self.config)
@@ -473,9 +489,16 @@ class Workspace:
             config = {"spec": meas.spec.to_dict(), "policy": meas.policy.to_dict(), "base_artifact": name,
                       "corrections": [], "split": meas.split, "calibration": {
                           k: v for k, v in meas.calibration.items() if k != "reliability"}}
+            fresh = _Active(None, model, meas.policy, dict(zip(ids, labels, strict=True)), name, [])  # type: ignore[arg-type]
+            if corrections_after is not None:
+                for c in self.store.corrections():
+                    if c.id > corrections_after and c.status != "pending":
+                        self._learn_correction(fresh, c)
+            config["corrections"] = list(fresh.corrections)
             mv = self.store.add_model_version(parent, kind, config, fp, name, scorecard=meas.scorecard.to_dict(),
                                               note=note)
-            self._active = _Active(mv, model, meas.policy, dict(zip(ids, labels, strict=True)), name, [])
+            fresh.version = mv
+            self._active = fresh
         return mv
 
     def evaluate(self, progress: Progress | None = None, split: str = "time", folds: int = 5) -> Measurement:
@@ -544,8 +567,9 @@ class Workspace:
     def route_records(self, records: Sequence[ItemRecord], source: str) -> tuple[list[dict[str, Any]], int]:
         """Decide, store the items (so they can be corrected later) and the decisions in one transaction;
         returns (decisions, batch id)."""
-        decisions, batch = self._decide(records)
-        summary = self.batch_summary(decisions, batch)
+        with self._lock:  # the summary reads the same model the decisions came from
+            decisions, batch = self._decide(records)
+            summary = self.batch_summary(decisions, batch)
         rows = [Decision(item_id=d["id"], model_version=d["model_version"], queue=d["queue"],
                          suggested=d["suggested"], confidence=d["confidence"], held=d["held"],
                          runner_up=d["runner_up"], evidence=d["evidence"]) for d in decisions]
@@ -556,9 +580,23 @@ class Workspace:
             batch_id = self.store.record_batch(source, rows, summary)
         return decisions, batch_id
 
+    def stored_with_other_fields(self, records: Sequence[ItemRecord]) -> set[str]:
+        """Ids already stored with other field values: routing them would decide on one text and store
+        another, so a later correction would learn what was not routed."""
+        stored = {r.item_id: r.fields for r in self.store.get_items_if_any([r.item_id for r in records])}
+        return {r.item_id for r in records if r.item_id in stored and stored[r.item_id] != r.fields}
+
     def route_file(self, path: Path | str) -> tuple[list[dict[str, Any]], IngestResult, int]:
+        """Route every good row of a file; rows whose id is stored with other fields are left out, with a
+        warning naming them (give a changed item a new id)."""
         result = read_items(path, self.config.schema, require_label=False,
                             max_text_chars=self.config.max_text_chars)
+        clash = self.stored_with_other_fields(result.records)
+        if clash:
+            result.records = [r for r in result.records if r.item_id not in clash]
+            shown = ", ".join(sorted(clash)[:10]) + (" ..." if len(clash) > 10 else "")
+            result.warnings.append(f"{path}: {len(clash)} item(s) not routed: already stored with other field "
+                                   f"values (give a changed item a new id): {shown}")
         decisions, batch_id = self.route_records(result.records, source=str(path))
         return decisions, result, batch_id
 
@@ -589,11 +627,11 @@ class Workspace:
             rec = self.store.get_item(item_id)
             if rec is None:
                 raise WorkspaceError(f"{self.store.path}: no item with id {item_id!r}")
-            enc = active.model.encoder.encode(rec.fields, allow_missing=True)
+            batch = active.model.encoder.transform([rec.fields], allow_missing=True, keep_words=True)
+            enc = replace(batch.row(0), unknown_tokens=(batch.unknown or ((),))[0])
             jll = active.model.joint_log_likelihood_one(enc)
             probs = active.policy.calibrated(jll)
-            words = active.model.encoder.transform([rec.fields], allow_missing=True, keep_words=True).words or ()
-            verdict = decide(probs, active.model.queues, active.policy, self._hits(words))[0]
+            verdict = decide(probs, active.model.queues, active.policy, self._hits(batch.words or ()))[0]
             ev = explain_item(active.model, enc, verdict.top_index, verdict.runner_up_index)
         return {
             "id": item_id, "label": rec.label, "fields": rec.fields, "queue": verdict.queue,
@@ -628,21 +666,45 @@ class Workspace:
         active.corrections.append(c.id)
 
     def _commit_correction(self, c: Correction) -> ModelVersion:
-        active = self._require_model()
-        parent = active.version
-        self._learn_correction(active, c)
-        config = dict(parent.config)
-        config["corrections"] = list(active.corrections)
-        config["base_artifact"] = active.base_artifact
-        with self.store.transaction():
-            mv = self.store.add_model_version(parent.version, "correction", config, parent.fingerprint,
-                                              active.base_artifact, scorecard=parent.scorecard,
-                                              note=f"correction {c.id}: {c.item_id} -> {c.to_queue}")
-            self.store.apply_correction(c.id, mv.version)
-        active.version = mv
-        if len(active.corrections) >= SNAPSHOT_EVERY:
-            self._snapshot(active)
-        return active.version
+        """Learn a journaled correction and record the corrected version, safely against other processes.
+
+        Inside the write transaction the store must still have our parent version active and the correction
+        still pending; if another process activated a version meanwhile, the newest one is loaded and the
+        correction learned on it instead; if another process already applied it, its version is taken. Any
+        failure puts back the parent model, so memory never holds a correction the store lacks."""
+        for _attempt in range(5):
+            active = self._require_model()
+            parent = active.version
+            try:
+                self._learn_correction(active, c)
+                config = dict(parent.config)
+                config["corrections"] = list(active.corrections)
+                config["base_artifact"] = active.base_artifact
+                with self.store.transaction():
+                    current = self.store.active_model()
+                    if current is None or current.version != parent.version:
+                        raise _StaleVersion
+                    if self.store.get_correction(c.id).status != "pending":
+                        raise _AlreadyApplied
+                    mv = self.store.add_model_version(parent.version, "correction", config, parent.fingerprint,
+                                                      active.base_artifact, scorecard=parent.scorecard,
+                                                      note=f"correction {c.id}: {c.item_id} -> {c.to_queue}")
+                    self.store.apply_correction(c.id, mv.version)
+            except _StaleVersion:
+                self._load_active()
+                continue
+            except _AlreadyApplied:
+                self._load_active()
+                return self._require_model().version
+            except BaseException:
+                self._active = self._load_version(parent)
+                raise
+            active.version = mv
+            if len(active.corrections) >= SNAPSHOT_EVERY:
+                self._snapshot(active)
+            return active.version
+        raise WorkspaceError("the active model kept changing under this correction; it stays journaled and "
+                             "is learned the next time the workspace opens")
 
     def _snapshot(self, active: _Active) -> None:
         """Write the corrected model as a full artifact so loading does not replay a long journal."""
@@ -663,10 +725,11 @@ class Workspace:
         if not pending:
             return
         if self._active is None:
-            return  # no model: they are applied to the labels at the next training
+            return  # no model yet: they stay journaled and are learned once a model exists and the workspace opens
         with self._lock:
             for c in pending:
-                self._commit_correction(c)
+                if self.store.get_correction(c.id).status == "pending":  # another process may have finished it
+                    self._commit_correction(c)
 
     def correct(self, item_id: str, queue: str, by: str = "operator") -> CorrectionReport:
         """Journal a correction (durable first), learn it exactly, and activate the corrected model."""
@@ -674,6 +737,7 @@ class Workspace:
         if not queue:
             raise WorkspaceError("the queue to correct to is empty")
         with self._lock:
+            self.refresh_if_changed()  # correct the newest model, whoever activated it
             active = self._require_model()
             rec = self.store.get_item(item_id)
             if rec is None:
@@ -690,6 +754,7 @@ class Workspace:
     def undo(self, by: str = "operator") -> CorrectionReport:
         """Reverse the newest correction that has not been undone (journaled and learned like any correction)."""
         with self._lock:
+            self.refresh_if_changed()
             active = self._require_model()
             last = self.store.last_undoable_correction()
             if last is None:

@@ -9,7 +9,8 @@ mentions smoke costs far more than a second look.
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+import re
+from collections.abc import Collection, Mapping, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -22,6 +23,7 @@ HELD_NEVER_AUTO = "never auto-routed: a person reviews every item here"
 HELD_NO_CUTOFF = "no cutoff meets this queue's target precision yet"
 HELD_WATCH = "may belong to a never-auto queue"
 HELD_WORD = "mentions a watch word of"
+_WATCH_SPLIT = re.compile(r"[\s\-/]+")
 
 
 @dataclass(frozen=True)
@@ -82,13 +84,17 @@ class Verdict:
     runner_up_index: int
 
 
-def watch_hits(words: Sequence[str], watch_words: Mapping[str, Sequence[str]]) -> list[str]:
-    """'queue: word' for every watch word (a prefix) that one of the item's words starts with."""
+def watch_hits(words: Collection[str], watch_words: Mapping[str, Sequence[str]]) -> list[str]:
+    """'queue: entry' for every watch entry the item's words match.
+
+    An entry is one or more word starts ("burn", "carbon monox", "self-harm"): it matches when every one of its
+    parts starts one of the item's words (the tokenizer splits "self-harm" into "self" and "harm")."""
     hits = []
-    for queue, prefixes in watch_words.items():
-        for w in prefixes:
-            if any(tok.startswith(w) for tok in words):
-                hits.append(f"{queue}: {w}")
+    for queue, entries in watch_words.items():
+        for entry in entries:
+            parts = [p for p in _WATCH_SPLIT.split(entry) if p]
+            if parts and all(any(tok.startswith(p) for tok in words) for p in parts):
+                hits.append(f"{queue}: {entry}")
     return hits
 
 

@@ -324,11 +324,12 @@ class Store:
         )
         return None if row is None else _item(row)
 
-    def get_items(self, ids: Iterable[str]) -> list[ItemRecord]:
-        """Items in the order asked; UnknownItemError names the ids that are not stored."""
-        wanted = list(ids)
+    def get_items_if_any(self, ids: Iterable[str]) -> list[ItemRecord]:
+        """The stored ones among these ids (in no particular order); unknown ids are left out."""
+        return list(self._found(list(dict.fromkeys(ids))).values())
+
+    def _found(self, unique: list[str]) -> dict[str, ItemRecord]:
         found: dict[str, ItemRecord] = {}
-        unique = list(dict.fromkeys(wanted))
         for start in range(0, len(unique), _CHUNK):
             chunk = unique[start : start + _CHUNK]
             marks = ",".join("?" * len(chunk))
@@ -336,6 +337,13 @@ class Store:
                 f"SELECT item_id, fields_json, label, arrived_at FROM items WHERE item_id IN ({marks})", chunk
             ):
                 found[row[0]] = _item(row)
+        return found
+
+    def get_items(self, ids: Iterable[str]) -> list[ItemRecord]:
+        """Items in the order asked; UnknownItemError names the ids that are not stored."""
+        wanted = list(ids)
+        unique = list(dict.fromkeys(wanted))
+        found = self._found(unique)
         missing = [i for i in unique if i not in found]
         if missing:
             shown = ", ".join(missing[:5]) + (f" and {len(missing) - 5} more" if len(missing) > 5 else "")
