@@ -2,12 +2,11 @@
 
 from __future__ import annotations
 
-import shutil
 from pathlib import Path
 
-import pandas as pd
 import pytest
 
+from tests.helpers import build_demo_workspace, copy_workspace
 from triage.workspace import Workspace, WorkspaceError
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -15,21 +14,11 @@ ROOT = Path(__file__).resolve().parents[1]
 
 @pytest.fixture(scope="module")
 def trained(tmp_path_factory: pytest.TempPathFactory) -> Path:
-    root = tmp_path_factory.mktemp("cutoffs")
-    cfg = (ROOT / "configs" / "voltwren.toml").read_text(encoding="utf-8")
-    cfg = cfg.replace('text_model = "auto"', 'text_model = "multinomial"').replace('alpha_text = "auto"',
-                                                                                  "alpha_text = 1.0")
-    (root / "triage.toml").write_text(cfg, encoding="utf-8")
-    pd.read_csv(ROOT / "demo_corpus" / "voltwren_tickets.csv").head(1200).to_csv(root / "t.csv", index=False)
-    with Workspace.open(root) as ws:
-        ws.import_file(root / "t.csv")
-        ws.train()
-    return root
+    return build_demo_workspace(tmp_path_factory.mktemp("cutoffs") / "ws", rows=1200)
 
 
 def test_a_hand_set_cutoff_routes_at_once_and_survives_a_restart(trained: Path, tmp_path: Path) -> None:
-    root = tmp_path / "ws"
-    shutil.copytree(trained, root)
+    root = copy_workspace(trained, tmp_path)
     with Workspace.open(root) as ws:
         before = ws.active_version.version
         recs = ws.store.labelled_items()[:300]
@@ -48,8 +37,7 @@ def test_a_hand_set_cutoff_routes_at_once_and_survives_a_restart(trained: Path, 
 
 
 def test_a_never_auto_queue_takes_no_cutoff_and_values_are_checked(trained: Path, tmp_path: Path) -> None:
-    root = tmp_path / "ws"
-    shutil.copytree(trained, root)
+    root = copy_workspace(trained, tmp_path)
     with Workspace.open(root) as ws:
         with pytest.raises(WorkspaceError, match="never-auto"):
             ws.set_cutoffs({"safety": 0.5})

@@ -6,7 +6,6 @@ ties to scikit-learn; the safety rules are the README's promises.
 
 from __future__ import annotations
 
-import shutil
 import tomllib
 from pathlib import Path
 
@@ -14,6 +13,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from tests.helpers import build_demo_workspace, copy_workspace
 from triage.config import ConfigError, config_from_dict
 from triage.records import ItemRecord
 from triage.workspace import Workspace
@@ -23,22 +23,10 @@ ROOT = Path(__file__).resolve().parents[1]
 
 @pytest.fixture(scope="module")
 def trained(tmp_path_factory: pytest.TempPathFactory) -> Path:
-    root = tmp_path_factory.mktemp("guards")
-    cfg = (ROOT / "configs" / "voltwren.toml").read_text(encoding="utf-8")
-    cfg = cfg.replace('text_model = "auto"', 'text_model = "multinomial"').replace('alpha_text = "auto"',
-                                                                                  "alpha_text = 1.0")
-    (root / "triage.toml").write_text(cfg, encoding="utf-8")
-    pd.read_csv(ROOT / "demo_corpus" / "voltwren_tickets.csv").head(1000).to_csv(root / "t.csv", index=False)
-    with Workspace.open(root) as ws:
-        ws.import_file(root / "t.csv")
-        ws.train()
-    return root
+    return build_demo_workspace(tmp_path_factory.mktemp("guards") / "ws", rows=1000)
 
 
-def _copy(trained: Path, tmp_path: Path) -> Path:
-    root = tmp_path / "ws"
-    shutil.copytree(trained, root)
-    return root
+_copy = copy_workspace
 
 
 def _model_agrees_with_store(ws: Workspace) -> None:
