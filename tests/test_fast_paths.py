@@ -80,3 +80,28 @@ def test_fit_transform_equals_fit_then_transform(items, min_count, max_vocab, bi
     assert a.terms_ == b.terms_
     assert (batch_a.X != batch_b.X).nnz == 0
     assert np.array_equal(batch_a.codes, batch_b.codes)
+
+
+def test_a_pruned_vocabulary_does_not_grow_so_training_items_stay_consistent() -> None:
+    """After pruning at fit, a word dropped there must not come back through a correction: the training items
+    holding it were counted without it, so forgetting them would fail (found by a property test)."""
+    from triage.core.model import ModelSpec, NaiveBayes
+
+    items = [{"subject": "refund", "body": "rare", "channel": "email", "n": 1.0},
+             {"subject": "refund", "body": "", "channel": "email", "n": 2.0},
+             {"subject": "login", "body": "", "channel": "phone", "n": 3.0},
+             {"subject": "login", "body": "", "channel": "phone", "n": 4.0}]
+    labels = ["billing", "billing", "app", "app"]
+    model = NaiveBayes.fit(SCHEMA, items, labels, ModelSpec(min_count=2))
+    assert "rare" not in model.encoder.vocabulary_ and model.encoder.pruned_
+    model.learn({"subject": "rare words", "body": "", "channel": "fax", "n": 5.0}, "billing")
+    assert "rare" not in model.encoder.vocabulary_  # no word growth after pruning
+    assert "fax" in model.encoder.level_index_["channel"]  # category values still grow
+    model.relabel(items[0], "billing", "app")  # the training item holding the pruned word can still move
+    fresh = NaiveBayes.fit(SCHEMA, items + [{"subject": "rare words", "body": "", "channel": "fax", "n": 5.0}],
+                           ["app", "billing", "app", "app", "billing"], ModelSpec(min_count=2),
+                           encoder=model.encoder)
+    batch = model.encoder.transform(items, allow_missing=True)
+    got, want = model.joint_log_likelihood(batch), fresh.joint_log_likelihood(batch)
+    order = [fresh.queues.index(q) for q in model.queues]
+    assert np.allclose(got, want[:, order], atol=1e-9)

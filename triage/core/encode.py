@@ -103,6 +103,7 @@ class Encoder:
         self.levels_: dict[str, list[str]] = {}
         self.level_index_: dict[str, dict[str, int]] = {}
         self.edges_: dict[str, np.ndarray] = {}
+        self.pruned_ = False  # did fitting drop any word? then the vocabulary does not grow (see grow)
 
     # ----- fitting -------------------------------------------------------------------------------------------
     def fit(self, items: Sequence[Mapping[str, Any]]) -> Encoder:
@@ -142,6 +143,7 @@ class Encoder:
         if self.max_vocab is not None and len(kept) > self.max_vocab:
             kept.sort(key=lambda tc: (-tc[1], tc[0]))
             kept = kept[: self.max_vocab]
+        self.pruned_ = len(kept) < len(provisional)
         self.terms_ = sorted(t for t, _ in kept)
         self.vocabulary_ = {t: i for i, t in enumerate(self.terms_)}
         remap = np.full(len(occurrences), -1, dtype=np.int32)
@@ -175,9 +177,13 @@ class Encoder:
         self.level_index_[name] = {v: i for i, v in enumerate(levels)}
 
     def grow(self, item: Mapping[str, Any]) -> tuple[int, dict[str, int]]:
-        """Add the item's unseen tokens and category values; returns (new tokens, new levels per field)."""
+        """Add the item's unseen tokens and category values; returns (new tokens, new levels per field).
+
+        When fitting pruned words (min_count, max_vocab), no word is added: a pruned word cannot be told from a
+        new one, and adding it would make the training items that hold it disagree with their counts. Such
+        words wait for the next training; category values are never pruned and always grow."""
         new_tokens = 0
-        for f in self.schema.text_fields:
+        for f in () if self.pruned_ else self.schema.text_fields:
             for tok in self.tokenizer.tokens(self._get(item, f, True)):
                 if tok not in self.vocabulary_:
                     self.vocabulary_[tok] = len(self.terms_)
@@ -301,6 +307,7 @@ class Encoder:
             "tokenizer": {"bigrams": self.tokenizer.bigrams, "max_token_chars": self.tokenizer.max_token_chars},
             "min_count": self.min_count,
             "max_vocab": self.max_vocab,
+            "pruned": self.pruned_,
             "terms": self.terms_,
             "levels": self.levels_,
             "edges": {k: v.tolist() for k, v in self.edges_.items()},
@@ -311,6 +318,8 @@ class Encoder:
         enc = cls(schema, Tokenizer(**m["tokenizer"]), min_count=m["min_count"], max_vocab=m["max_vocab"])
         enc.terms_ = list(m["terms"])
         enc.vocabulary_ = {t: i for i, t in enumerate(enc.terms_)}
+        # older manifests did not say; a model fitted with min_count > 1 may have pruned, so assume it did
+        enc.pruned_ = bool(m.get("pruned", m.get("min_count", 1) > 1))
         for name, levels in m["levels"].items():
             enc._set_levels(name, list(levels))
         enc.edges_ = {k: np.asarray(v, dtype=np.float64) for k, v in m["edges"].items()}
