@@ -151,8 +151,8 @@ def grid_cells(row: GridRow, names: list[str]) -> list[str]:
     """One settings-grid row as table cells (weights in the order of the text fields)."""
     weights = "/".join(f"{row.text_weights.get(n, 1.0):g}" for n in names)
     return [row.text_model, f"{row.alpha_text:g}", "on" if row.bigrams else "off", "on" if row.fields else "off",
-            weights, "on" if row.transforms else "off", pct(row.accuracy), num(row.macro_f1, 3),
-            num(row.log_loss, 3), pct(row.coverage)]
+            weights, "on" if row.transforms else "off", pct(row.coverage), num(row.macro_f1, 3), pct(row.accuracy),
+            num(row.log_loss, 3)]
 
 
 def same_setting(row: GridRow, spec: ModelSpec, weights: dict[str, float]) -> bool:
@@ -199,8 +199,9 @@ class ModelsView(View):
         t = self.query_one("#models-table", DataTable)
         t.add_columns("", "version", "kind", "created (UTC)", "accuracy", "coverage", "note")
         g = self.query_one("#grid-table", DataTable)
-        g.add_columns("", "text model", "alpha", "bigrams", "fields", "weights", "transforms", "accuracy",
-                      "macro-F1", "log loss", "auto-routed")
+        # the ranking figure (auto-routed) next to the settings, so it shows at 80 columns too
+        g.add_columns("", "text model", "alpha", "bigr.", "fields", "weights", "transf.", "auto", "F1", "acc.",
+                      "log loss")
         self.reload()
 
     def reload(self) -> None:
@@ -291,7 +292,7 @@ class ModelsView(View):
     def action_grid(self) -> None:
         if self._busy():
             return
-        self._start(f"settings grid: {self.grid_folds}-fold cross-validation of every setting")
+        self._start(f"settings grid, {self.grid_folds}-fold: starting")
         self.run_grid()
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="grid")
@@ -306,7 +307,7 @@ class ModelsView(View):
         except Cancelled as exc:
             self.app.call_from_thread(self._grid_done, str(exc), None)
             return None
-        self.app.call_from_thread(self._grid_done, f"settings grid: {len(rows)} settings, best first", rows)
+        self.app.call_from_thread(self._grid_done, f"grid done: {len(rows)} settings, best first", rows)
         return rows
 
     def _grid_done(self, what: str, rows: list[GridRow] | None) -> None:
@@ -330,14 +331,15 @@ class ModelsView(View):
         model = self.ws.model
         weights = {f.name: float(f.weight) for f in model.encoder.schema.text_fields} if model is not None else {}
         for i, r in enumerate(self.grid_rows):
-            mark = "● model" if model is not None and same_setting(r, model.spec, weights) else ""
+            mark = "●" if model is not None and same_setting(r, model.spec, weights) else ""
             g.add_row(mark, *grid_cells(r, names), key=str(i))
         g.set_class(bool(self.grid_rows), "filled")
         if g.row_count:
             g.move_cursor(row=min(max(row, 0), g.row_count - 1))
+        self.set_class(bool(self.grid_rows), "gridded")
         self.query_one("#grid-title", Label).update(
-            f"settings grid: {len(self.grid_rows)} settings, {self.grid_folds}-fold, best first by auto-routed at "
-            f"each queue's target, then macro-F1 · weights {'/'.join(names)} · s adopts the selected row")
+            f"grid: {len(self.grid_rows)} settings, {self.grid_folds}-fold, best first · auto: share auto-routed at "
+            f"target · weights {'/'.join(names)} · transf.: tf-log, idf, length norm · ● active · s adopts")
 
     def selected_grid_row(self) -> GridRow | None:
         g = self.query_one("#grid-table", DataTable)
@@ -434,6 +436,7 @@ class ScorecardView(View):
         super().__init__(ws, **kw)
         self.meas: Measurement | None = None
         self.measured_for: int | None = None  # the active version the measurement and `saved` belong to
+        self.measuring = False  # a measurement was asked for and has not arrived
         self.saved: dict[str, float | None] = {}  # the active policy's cutoffs, per scorecard queue
         self.cutoffs: dict[str, float | None] = {}  # the what-if cutoffs on screen
         self.curves: dict[str, dict[str, list[float]]] = {}
@@ -465,18 +468,14 @@ class ScorecardView(View):
         if self.card is None and mv.scorecard:
             self.card = Scorecard.from_dict(mv.scorecard)  # stored figures until the measurement arrives
             self.cutoffs = {q.queue: q.cutoff for q in self.card.per_queue}
-            self.show()
+        self.measuring = True
+        self.show()
         self.measure()
 
     def _active_cutoffs(self, meas: Measurement) -> dict[str, float | None]:
         policy = self.ws.policy
         return {q: policy.cutoff(q) if policy is not None and q in meas.model_queues else None
                 for q in meas.scorecard.queues}
-
-    @property
-    def measuring(self) -> bool:
-        return any(w.state in (WorkerState.PENDING, WorkerState.RUNNING) for w in self.app.workers
-                   if w.group == "score")
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="score")
     def measure(self) -> Measurement | None:
@@ -493,6 +492,7 @@ class ScorecardView(View):
     def _measured(self, meas: Measurement, curves: dict[str, dict[str, list[float]]], version: int) -> None:
         pending = {q: c for q, c in self.cutoffs.items() if self.meas is not None and c != self.saved.get(q)}
         self.meas, self.curves, self.measured_for = meas, curves, version
+        self.measuring = False
         self.saved = self._active_cutoffs(meas)
         # unsaved what-if cutoffs survive a re-measure (a correction elsewhere), for queues the model still has
         self.cutoffs = dict(self.saved)
@@ -510,10 +510,12 @@ class ScorecardView(View):
     def on_worker_state_changed(self, event: Worker.StateChanged) -> None:
         if event.worker.group in ("score", "cutoffs") and event.state == WorkerState.ERROR:
             _err(self, event.worker.error or Exception("scoring failed"))
+            self.measuring = False
             self.show()
 
     def action_remeasure(self) -> None:
         self.notify("scoring the held-out items again…")
+        self.measuring = True
         self.measure()
         self.show()
 
@@ -559,11 +561,11 @@ class ScorecardView(View):
         if not changed:
             self.notify("these are the active version's cutoffs: nothing to save (+ and - try others)")
             return
-        before = self.card
+        now, after = self.meas.rescore(dict(self.saved)), self.card
         lines = "\n".join(f"  {q}: {cutoff_text(self.saved.get(q))} -> {cutoff_text(c)}"
                           for q, c in sorted(changed.items()))
-        figures = (f"\nOn the held-out items: coverage {pct(before.coverage)}, auto precision "
-                   f"{pct(before.auto_precision)}." if before is not None else "")
+        figures = (f"\nOn the held-out items: coverage {pct(now.coverage)} -> {pct(after.coverage)}, auto "
+                   f"precision {pct(now.auto_precision)} -> {pct(after.auto_precision)}." if after is not None else "")
         version = self.measured_for
 
         def answer(yes: bool | None) -> None:
@@ -606,8 +608,8 @@ class ScorecardView(View):
                 s.append("   (scoring again…)", style="dim")
             own = [q for q in card.queues if self.saved.get(q) != self.meas.policy.cutoff(q)]
             if own and not self.changed:
-                s.append(f"\nat the active version's cutoffs; re-solved on these labels they would differ for "
-                         f"{', '.join(own)}", style="dim")
+                s.append(f"\nat the active version's cutoffs (`triage evaluate` solves its own on these labels: "
+                         f"they differ for {', '.join(own)})", style="dim")
         summary.update(s)
         t = self.query_one("#queue-table", DataTable)
         row = t.cursor_row
