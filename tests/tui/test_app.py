@@ -541,6 +541,7 @@ def test_help_and_command_palette(workspace_path: Path) -> None:
         assert isinstance(app.screen, HelpScreen)
         keys = text_of(app.screen.query_one("#help-keys", Static))
         assert "Raise the selected cutoff" in keys and "Pick the queue" in keys
+        assert "Save the what-if cutoffs" in keys and "grid row's settings into triage.toml" in keys
         await pilot.press("escape")
         await pilot.pause()
         assert not isinstance(app.screen, HelpScreen)

@@ -352,6 +352,8 @@ class ModelsView(View):
         if row is None:
             self.notify("no settings grid yet: g runs it")
             return
+        if self._busy():  # a training run reads the config being written
+            return
         names = [f.name for f in self.ws.config.schema.text_fields]
         weights = ", ".join(f"{n} {row.text_weights.get(n, 1.0):g}" for n in names)
         transforms = "on" if row.transforms else "off"
