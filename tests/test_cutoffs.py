@@ -45,3 +45,31 @@ def test_a_never_auto_queue_takes_no_cutoff_and_values_are_checked(trained: Path
             ws.set_cutoffs({"billing": 1.5})
         with pytest.raises(WorkspaceError, match="unknown queue"):
             ws.set_cutoffs({"nowhere": 0.5})
+
+
+def test_the_adopted_version_carries_the_scorecard_at_its_cutoffs(trained: Path, tmp_path: Path) -> None:
+    root = copy_workspace(trained, tmp_path)
+    with Workspace.open(root) as ws:
+        mv = ws.set_cutoffs({"billing": 0.5})
+        meas = ws.evaluate()
+        # the stored scorecard is the held-out rows scored at the adopted cutoffs, as evaluate shows them
+        assert meas.at_active is not None and meas.active_cutoffs["billing"] == 0.5
+        assert mv.scorecard == meas.at_active.to_dict()
+
+
+def test_adopting_a_grid_row_keeps_the_comments_of_the_config(trained: Path, tmp_path: Path) -> None:
+    from triage import tuning
+    from triage.config import load_config
+
+    root = copy_workspace(trained, tmp_path)
+    path = root / "triage.toml"
+    before = path.read_text(encoding="utf-8")
+    with Workspace.open(root) as ws:
+        row = tuning.GridRow("bernoulli", 0.5, True, True, {"subject": 3.0, "body": 1.0}, False, 0.9, 0.9, 0.3, 0.5)
+        tuning.adopt(ws, row)
+    after = path.read_text(encoding="utf-8")
+    comments = [ln for ln in before.splitlines() if ln.lstrip().startswith("#")]
+    assert comments and all(c in after.splitlines() for c in comments)
+    cfg = load_config(path)
+    assert (cfg.model.text_model, cfg.model.alpha_text, cfg.model.bigrams) == ("bernoulli", 0.5, True)
+    assert cfg.schema.field("subject").weight == 3.0

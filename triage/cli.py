@@ -240,6 +240,8 @@ def cmd_evaluate(args: argparse.Namespace) -> int:
         card = meas.scorecard.to_dict()
         if args.json:
             _emit_json({"split": meas.split, "scorecard": card, "cutoffs": meas.cutoffs,
+                        "active_cutoffs": meas.active_cutoffs,
+                        "scorecard_at_active_cutoffs": meas.at_active.to_dict() if meas.at_active else None,
                         "calibration": meas.calibration, "precision_coverage": meas.precision_coverage(50)})
             return 0
         sp = meas.split
@@ -250,6 +252,12 @@ def cmd_evaluate(args: argparse.Namespace) -> int:
             out.print(f"Trained on the {sp['train_items']} oldest items, scored on the {sp['test_items']} newest "
                       f"({sp['test_from']} to {sp['test_to']}).")
         render_scorecard(card)
+        if meas.at_active is not None:
+            a = meas.at_active
+            hand = ", ".join(f"{q} {'none' if c is None else f'{c:.3f}'}" for q, c in sorted(meas.active_cutoffs.items()))
+            out.print(f"The active version routes with other cutoffs (set by hand, or solved when it was trained on "
+                      f"other labels): {hand}; at those the same items are auto-routed "
+                      f"{_pct(a.coverage)} at precision {_pct(a.auto_precision)}.")
         render_calibration(meas.calibration)
         out.print(SAFETY_NOTE)
     return 0

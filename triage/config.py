@@ -248,3 +248,47 @@ def dump_config(cfg: Config, comments: dict[str, str] | None = None) -> str:
             out.append("watch_words = [" + ", ".join(_toml_value(w) for w in q.watch_words) + "]")
         out.append("")
     return "\n".join(out)
+
+
+def update_config_text(text: str, updates: dict[tuple[str, str], Any]) -> str:
+    """Set `key = value` in `[table]` of a TOML text, keeping every comment and every other line as it is.
+
+    A key not yet in its table is added under the table's header; a table not yet in the text is added at the
+    end. Written by hand because the standard library reads TOML but cannot write it, and a rewrite from the
+    parsed config would drop the comments a person put there."""
+    lines = text.splitlines()
+    for (table, key), value in updates.items():
+        rendered = f"{key} = {_toml_value(value)}"
+        header = f"[{table}]"
+        start = next((i for i, ln in enumerate(lines) if ln.strip() == header), None)
+        if start is None:
+            lines += ["", header, rendered]
+            continue
+        end = next((i for i in range(start + 1, len(lines)) if lines[i].lstrip().startswith("[")), len(lines))
+        for i in range(start + 1, end):
+            stripped = lines[i].lstrip()
+            if stripped.startswith(f"{key} ") or stripped.startswith(f"{key}="):
+                lines[i] = rendered
+                break
+        else:
+            lines.insert(start + 1, rendered)
+    return "\n".join(lines) + "\n"
+
+
+def write_config_atomically(path: Path, text: str) -> None:
+    """Replace the config file in one step (temporary file, fsync, rename): never half a config."""
+    import os
+    import tempfile
+
+    config_from_dict(tomllib.loads(text), path)  # refuse to write what would not load
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8") as fh:
+            fh.write(text)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise

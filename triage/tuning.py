@@ -162,15 +162,22 @@ def _coverage(ws: Workspace, jll: np.ndarray, queues: list[str], labels: list[st
 def adopt(ws: Workspace, row: GridRow) -> None:
     """Write a grid row's text settings into triage.toml: text model, alpha, bigrams, the transforms in [model]
     and the text weights in [fields] (fields on/off is reported, not a config setting)."""
-    from triage.config import dump_config
+    from triage.config import update_config_text, write_config_atomically
     from triage.workspace import CONFIG_NAME
 
+    updates: dict[tuple[str, str], Any] = {
+        ("model", "text_model"): row.text_model, ("model", "alpha_text"): row.alpha_text,
+        ("model", "bigrams"): row.bigrams, ("model", "tf_log"): row.transforms, ("model", "idf"): row.transforms,
+        ("model", "length_norm"): row.transforms,
+    }
+    updates.update({(f"fields.{name}", "weight"): float(w) for name, w in row.text_weights.items()})
+    path = ws.root / CONFIG_NAME
+    write_config_atomically(path, update_config_text(path.read_text(encoding="utf-8"), updates))
     ws.config.model.text_model = row.text_model
     ws.config.model.alpha_text = row.alpha_text
     ws.config.model.bigrams = row.bigrams
     ws.config.model.tf_log = ws.config.model.idf = ws.config.model.length_norm = row.transforms
     ws.config.schema = _with_weights(ws.config.schema, row.text_weights)
-    (ws.root / CONFIG_NAME).write_text(dump_config(ws.config), encoding="utf-8")
 
 
 def lift_for(ws: Workspace, queue: str) -> dict[str, Any]:

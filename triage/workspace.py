@@ -97,6 +97,9 @@ class Measurement:
     # k-fold split only: the outer fold of each held-out row, and each fold's own policy (calibration, cutoffs)
     holdout_folds: np.ndarray | None = None
     fold_policies: list[RoutingPolicy] = field(default_factory=list)
+    # when routing uses cutoffs other than the solved ones (set by hand): those, and the scorecard at them
+    active_cutoffs: dict[str, float | None] | None = None
+    at_active: Scorecard | None = None
 
     def verdicts(self, cutoffs: dict[str, float | None] | None = None) -> list[Verdict]:
         """The routing decisions on the held-out rows (a k-fold row under its own fold's policy); `cutoffs`
@@ -511,7 +514,17 @@ class Workspace:
             return self.measure_kfold(active.model.spec, folds=folds, progress=progress)
         if split != "time":
             raise WorkspaceError(f"unknown split {split!r}; use time or kfold")
-        return self.measure(active.model.spec, progress=progress)
+        meas = self.measure(active.model.spec, progress=progress)
+        # routing may use cutoffs set by hand: score the same rows at those too
+        def same(a: float | None, b: float | None) -> bool:
+            return (a is None and b is None) or (a is not None and b is not None and abs(a - b) < 1e-12)
+
+        other = {q: c for q, c in active.policy.cutoffs.items()
+                 if q in meas.model_queues and not same(c, meas.policy.cutoffs.get(q))}
+        if other:
+            meas.active_cutoffs = other
+            meas.at_active = meas.rescore({**dict(meas.policy.cutoffs), **other})
+        return meas
 
     # ----- routing ---------------------------------------------------------------------------------------
     def _decision(self, active: _Active, rec: ItemRecord, verdict: Any, terms: Sequence[Any],
@@ -778,7 +791,8 @@ class Workspace:
             self._active = loaded
         return mv
 
-    def set_cutoffs(self, cutoffs: dict[str, float | None], by: str = "operator") -> ModelVersion:
+    def set_cutoffs(self, cutoffs: dict[str, float | None], by: str = "operator",
+                    scorecard: dict[str, Any] | None = None) -> ModelVersion:
         """Adopt other cutoffs as a new model version (same counts, new routing policy); rollback restores.
 
         A never-auto queue keeps no cutoff whatever is asked: a person sees every item predicted there."""
@@ -795,12 +809,16 @@ class Workspace:
             merged = dict(active.policy.cutoffs)
             merged.update({q: None if c is None else float(c) for q, c in cutoffs.items()})
             policy = replace(active.policy, cutoffs=merged)
+            if scorecard is None:  # the new version's scorecard: the same held-out rows at the new cutoffs
+                meas = self.measure(active.model.spec)
+                scorecard = meas.rescore({**dict(meas.policy.cutoffs),
+                                          **{q: c for q, c in merged.items() if q in meas.model_queues}}).to_dict()
             config = dict(active.version.config)
             config.update({"policy": policy.to_dict(), "corrections": list(active.corrections),
                            "base_artifact": active.base_artifact})
             changed = ", ".join(f"{q} {'none' if c is None else f'{c:.3f}'}" for q, c in sorted(cutoffs.items()))
             mv = self.store.add_model_version(active.version.version, "adopt", config, active.version.fingerprint,
-                                              active.base_artifact, scorecard=active.version.scorecard,
+                                              active.base_artifact, scorecard=scorecard,
                                               note=f"cutoffs set by {by}: {changed}")
             active.version, active.policy = mv, policy
             return mv
