@@ -112,7 +112,8 @@ def infer_config(
         whose values mostly parse as dates, or whose values are not numbers and >= 95% parse as dates.
       - number: >= 95% of the non-empty values parse as numbers (the rest would be rejected on import).
       - left out: an empty or single-valued column; an all-distinct short code without spaces (not the id).
-      - text: mean length >= 25 characters, or > 50% distinct and > 30 distinct values. Long text (mean
+      - text: mean length >= 25 characters, or > 50% distinct and > 30 distinct values, or most values hold
+        several words and there are > 30 distinct ones (subjects, job titles). Long text (mean
         >= 60 characters) gets weight 1.0, short text (subjects, titles) weight 2.0.
       - category: at most 100 distinct values or at most 20% distinct.
       - left out: anything else (too many short distinct values for a category, too short for text).
@@ -180,7 +181,10 @@ def infer_config(
         if distinct == len(filled) and mean_len < TEXT_MIN_MEAN_CHARS and spaced < 0.1:
             reasons[c] = "left out: every value is distinct, short and without spaces (a code, not the id)"
             continue
-        if mean_len >= TEXT_MIN_MEAN_CHARS or (unique_share > 0.5 and distinct > 30):
+        # words, not codes: most values hold several words and there are many of them (subjects, job titles);
+        # as text, "VP Operations" and "VP of Operations" share evidence, as categories they would not
+        wordy = spaced >= 0.5 and distinct > 30
+        if mean_len >= TEXT_MIN_MEAN_CHARS or (unique_share > 0.5 and distinct > 30) or wordy:
             if mean_len >= LONG_TEXT_CHARS:
                 specs.append(FieldSpec(name=c, role=FieldRole.TEXT, weight=1.0))
                 reasons[c] = f"long text (mean {mean_len:.0f} characters), weight 1.0"
