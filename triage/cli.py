@@ -13,6 +13,7 @@ from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import Any
 
+from rich import box
 from rich.console import Console
 from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 from rich.table import Table
@@ -71,7 +72,8 @@ def _pct(x: float | None) -> str:
 def render_scorecard(card: dict[str, Any], console: Console = out) -> None:
     """The confusion matrix and the per-queue table at the cutoffs."""
     queues = card["queues"]
-    m = Table(title="Confusion matrix (rows: true queue, columns: suggested queue)", title_justify="left")
+    m = Table(title="Confusion matrix (rows: true queue, columns: suggested queue)", title_justify="left",
+              box=box.SIMPLE_HEAD, pad_edge=False)
     m.add_column("true \\ suggested")
     for q in queues:
         m.add_column(q[:12], justify="right")
@@ -80,14 +82,19 @@ def render_scorecard(card: dict[str, Any], console: Console = out) -> None:
         m.add_row(q, *[f"[bold]{v}[/]" if i == queues.index(q) else (f"{v}" if v / total < 0.05 else f"[yellow]{v}[/]")
                        for i, v in enumerate(row)])
     console.print(m)
-    t = Table(title="Per queue, at the cutoffs", title_justify="left")
-    for col in ("queue", "target", "cutoff", "precision", "recall", "F1", "support", "auto-routed", "held"):
-        t.add_column(col, justify="left" if col == "queue" else "right")
+    t = Table(title="Per queue, at the cutoffs (auto: share of its items auto-routed)", title_justify="left",
+              box=box.SIMPLE_HEAD, pad_edge=False)
+    width = max((len(q["queue"]) for q in card["per_queue"]), default=5)
+    t.add_column("queue", no_wrap=True, min_width=min(width, 20))
+    for col in ("target", "cutoff", "prec.", "recall", "F1", "n", "auto", "held"):
+        t.add_column(col, justify="right", no_wrap=True, min_width=6 if col in ("auto", "held", "prec.", "recall", "target") else None)
     for q in card["per_queue"]:
-        cutoff = "never (person)" if q["never_auto"] else ("none met" if q["cutoff"] is None else f"{q['cutoff']:.3f}")
+        cutoff = "person" if q["never_auto"] else ("none" if q["cutoff"] is None else f"{q['cutoff']:.3f}")
         t.add_row(q["queue"], _pct(q["target"]), cutoff, _pct(q["precision"]) if q["routed"] else "-",
                   _pct(q["recall"]), f"{q['f1']:.3f}", str(q["support"]), _pct(q["coverage"]), _pct(q["held_share"]))
     console.print(t)
+    console.print("cutoff: person = never auto-routed, a person sees every item; none = no cutoff meets the target "
+                  "yet, so nothing is auto-routed there")
     console.print(
         f"items {card['n']}  accuracy (top queue) {_pct(card['accuracy'])}  macro-F1 {card['macro_f1']:.3f}  "
         f"auto-routed {_pct(card['coverage'])} at precision {_pct(card['auto_precision'])}  "
@@ -97,7 +104,7 @@ def render_scorecard(card: dict[str, Any], console: Console = out) -> None:
 
 def render_decisions(decisions: Sequence[dict[str, Any]], console: Console = out, limit: int = 40) -> None:
     t = Table(title=f"Decisions ({len(decisions)} items; first {min(limit, len(decisions))} shown)",
-              title_justify="left")
+              title_justify="left", box=box.SIMPLE_HEAD, pad_edge=False)
     for col, width in (("id", 9), ("decision", 14), ("conf.", 5), ("runner-up", 10)):
         t.add_column(col, overflow="ellipsis", no_wrap=True, min_width=width)
     t.add_column("strongest evidence", ratio=1)
@@ -136,14 +143,16 @@ def render_explanation(x: dict[str, Any], console: Console = out) -> None:
 
 
 def render_models(versions: Sequence[Any], console: Console = out) -> None:
-    t = Table(title="Model versions", title_justify="left")
-    for col in ("", "version", "kind", "parent", "created", "text model", "accuracy", "auto-routed", "note"):
-        t.add_column(col)
+    t = Table(title="Model versions (* active)", title_justify="left", box=box.SIMPLE_HEAD, pad_edge=False)
+    for col in ("", "ver.", "kind", "created", "text model", "acc.", "auto"):
+        t.add_column(col, no_wrap=True)
+    t.add_column("note", ratio=1, min_width=18, overflow="fold")
     for v in versions:
         card = v.scorecard or {}
         spec = v.config.get("spec", {})
-        t.add_row("*" if v.active else "", str(v.version), v.kind, str(v.parent or "-"), v.created_at[:19],
-                  f"{spec.get('text_model', '?')} a={spec.get('alpha_text', '?')}", _pct(card.get("accuracy")),
+        model = f"{spec.get('text_model', '?')} {spec.get('alpha_text', '?'):g}" if isinstance(
+            spec.get("alpha_text"), int | float) else str(spec.get("text_model", "?"))
+        t.add_row("*" if v.active else "", str(v.version), v.kind, v.created_at[5:16].replace("T", " "), model, _pct(card.get("accuracy")),
                   _pct(card.get("coverage")), v.note)
     console.print(t)
 
@@ -221,8 +230,10 @@ def cmd_train(args: argparse.Namespace) -> int:
         if rep.selection:
             out.print(f"Chosen by 3-fold cross-validation among {len(rep.selection)} settings (macro-F1).")
         c = meas.calibration
-        out.print(f"Calibration: temperature {c['temperature']:.2f}; expected calibration error "
-                  f"{c['ece_before']:.3f} before, {c['ece_after']:.3f} after.")
+        hold = c.get("holdout") or c
+        out.print(f"Calibration: temperature {c['temperature']:.2f}"
+                  f"{', then isotonic' if (c.get('isotonic') or {}).get('used') else ''}; on the newest items the "
+                  f"expected calibration error is {hold['ece_before']:.3f} raw, {hold['ece_after']:.3f} calibrated.")
         sc = meas.scorecard
         out.print(f"On the newest {meas.split['test_items']} items (not used to fit): accuracy {_pct(sc.accuracy)}, "
                   f"auto-routed {_pct(sc.coverage)} at precision {_pct(sc.auto_precision)}. `triage evaluate` "
