@@ -176,3 +176,64 @@ def _val(v: object) -> str:
     if isinstance(v, str):
         return f'"{v}"'
     return repr(v)
+
+
+def test_watch_words_see_words_inside_identifiers_and_apostrophes(trained: Path, tmp_path: Path) -> None:
+    root = _copy(trained, tmp_path)
+    cfg = root / "triage.toml"
+    cfg.write_text(cfg.read_text(encoding="utf-8").replace('watch_words = ["burn"', 'watch_words = ["can\'t breathe", "burn"'),
+                   encoding="utf-8")
+    with Workspace.open(root) as ws:
+        for body, entry in (("unit SN-48213-smoking since the update", "smok"),
+                            ("order VW-104233/burnt cable", "burn"),
+                            ("I can't breathe near the inverter", "can't breathe")):
+            d = ws.decide_records([ItemRecord("X", {"subject": "Invoice", "body": body})])[0]
+            assert d["held"], body
+            if d["suggested"] != "safety":
+                assert entry in d["reason"], (body, d["reason"])
+
+
+def test_a_running_workspace_picks_up_a_queue_marked_never_auto(trained: Path, tmp_path: Path) -> None:
+    """A service keeps its workspace open; marking a queue never-auto in triage.toml must apply without a
+    restart (the README's promise)."""
+    import os
+    import time
+
+    root = _copy(trained, tmp_path)
+    with Workspace.open(root) as ws:
+        recs = ws.store.labelled_items()[:400]
+        queue = "billing"
+        ws.set_cutoffs({queue: 0.0})  # so that billing auto-routes before the rule changes
+        assert any(not d["held"] and d["queue"] == queue for d in ws.decide_records(recs))
+        cfg = root / "triage.toml"
+        cfg.write_text(cfg.read_text(encoding="utf-8") + f"\n[queues.{queue}]\nnever_auto = true\n", encoding="utf-8")
+        later = time.time() + 5
+        os.utime(cfg, (later, later))  # a different modification time, whatever the file system's resolution
+        ws.refresh_if_changed()
+        now = [d for d in ws.decide_records(recs) if d["suggested"] == queue]
+        assert now and all(d["held"] and d["flag"] == "never_auto" for d in now)
+
+
+def test_training_warns_about_a_queue_rule_that_matches_no_queue(trained: Path, tmp_path: Path) -> None:
+    root = _copy(trained, tmp_path)
+    cfg = root / "triage.toml"
+    cfg.write_text(cfg.read_text(encoding="utf-8") + "\n[queues.Safety]\nnever_auto = true\n", encoding="utf-8")
+    with Workspace.open(root) as ws:
+        report = ws.train()
+    assert any("[queues.Safety]" in w and "spelling" in w for w in report.warnings)
+
+
+def test_config_edits_find_quoted_headers_and_keep_comments_and_mode(tmp_path: Path) -> None:
+    from triage.config import update_config_text, write_config_atomically
+
+    text = ('[data]\nid = "id"\nlabel = "q"\n\n[fields."Job Title"]   # from the export\nrole = "text"\n'
+            'weight = 2.0\n\n[model]  # chosen by tune\ntext_model = "auto"\n')
+    path = tmp_path / "triage.toml"
+    path.write_text(text, encoding="utf-8")
+    path.chmod(0o644)
+    new = update_config_text(text, {("fields.Job Title", "weight"): 3.0, ("model", "text_model"): "bernoulli"})
+    write_config_atomically(path, new)
+    data = tomllib.loads(path.read_text(encoding="utf-8"))
+    assert data["fields"]["Job Title"]["weight"] == 3.0 and data["model"]["text_model"] == "bernoulli"
+    assert "# from the export" in new and "# chosen by tune" in new
+    assert path.stat().st_mode & 0o777 == 0o644

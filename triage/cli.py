@@ -220,10 +220,12 @@ def cmd_train(args: argparse.Namespace) -> int:
         data = {"version": rep.version.version, "items": rep.n_items, "seconds": round(rep.seconds, 2),
                 "spec": meas.spec.to_dict(), "selection": rep.selection, "cutoffs": meas.cutoffs,
                 "calibration": {k: v for k, v in meas.calibration.items() if k != "reliability"},
-                "scorecard": meas.scorecard.to_dict()}
+                "scorecard": meas.scorecard.to_dict(), "warnings": rep.warnings}
         if args.json:
             _emit_json(data)
             return 0
+        for w in rep.warnings:
+            err.print(f"warning: {w}", markup=False, soft_wrap=True)
         s = meas.spec
         out.print(f"Trained model version [b]{rep.version.version}[/] on {rep.n_items} items in {rep.seconds:.1f} s: "
                   f"{s.text_model} text (alpha {s.alpha_text}), fields alpha {s.alpha_fields}.")
@@ -620,8 +622,9 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("id", help="the item id")
     sp.add_argument("queue", help="the right queue (a new queue name is allowed)")
     sp.add_argument("--by", default="operator", help="who made the correction")
-    sp = add("undo", cmd_undo, "undo the newest correction (journaled and learned like any correction)")
-    sp.add_argument("--by", default="operator", help="who undid it")
+    sp = add("undo", cmd_undo, "undo the newest correction, whoever made it (journaled and learned like any "
+             "correction)")
+    sp.add_argument("--by", default="operator", help="who undoes it (recorded in the journal)")
     sp = add("models", cmd_models, "list model versions, or activate one (rollback)")
     sp.add_argument("action", nargs="?", choices=["list", "activate"], default="list", help="list or activate")
     sp.add_argument("version", nargs="?", type=int, help="the version to activate")

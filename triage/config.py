@@ -250,24 +250,42 @@ def dump_config(cfg: Config, comments: dict[str, str] | None = None) -> str:
     return "\n".join(out)
 
 
-def update_config_text(text: str, updates: dict[tuple[str, str], Any]) -> str:
-    """Set `key = value` in `[table]` of a TOML text, keeping every comment and every other line as it is.
+def _header_parts(line: str) -> list[str] | None:
+    """The dotted parts of a `[table]` header line (quotes and a trailing comment allowed), else None."""
+    stripped = line.strip()
+    if not stripped.startswith("[") or stripped.startswith("[["):
+        return None
+    try:
+        parsed = tomllib.loads(stripped + "\n")
+    except tomllib.TOMLDecodeError:
+        return None
+    parts: list[str] = []
+    while isinstance(parsed, dict) and len(parsed) == 1:
+        (k, parsed), = parsed.items()
+        parts.append(k)
+    return parts
 
-    A key not yet in its table is added under the table's header; a table not yet in the text is added at the
-    end. Written by hand because the standard library reads TOML but cannot write it, and a rewrite from the
-    parsed config would drop the comments a person put there."""
+
+def update_config_text(text: str, updates: dict[tuple[str, str], Any]) -> str:
+    """Set `key = value` in a table of a TOML text, keeping every comment and every other line as it is.
+
+    A table is named by its dotted path ("model", "fields.Job Title"); headers are matched by meaning, so quoted
+    names and trailing comments are found. A key not yet in its table is added under the header; a table not
+    yet in the text is added at the end. Written by hand because the standard library reads TOML but cannot
+    write it, and a rewrite from the parsed config would drop the comments a person put there."""
     lines = text.splitlines()
     for (table, key), value in updates.items():
-        rendered = f"{key} = {_toml_value(value)}"
-        header = f"[{table}]"
-        start = next((i for i, ln in enumerate(lines) if ln.strip() == header), None)
+        rendered = f"{_toml_key(key)} = {_toml_value(value)}"
+        path = table.split(".", 1) if table.startswith("fields.") or table.startswith("queues.") else [table]
+        start = next((i for i, ln in enumerate(lines) if _header_parts(ln) == path), None)
         if start is None:
-            lines += ["", header, rendered]
+            lines += ["", "[" + ".".join(_toml_key(p) for p in path) + "]", rendered]
             continue
-        end = next((i for i in range(start + 1, len(lines)) if lines[i].lstrip().startswith("[")), len(lines))
+        end = next((i for i in range(start + 1, len(lines)) if _header_parts(lines[i]) is not None), len(lines))
         for i in range(start + 1, end):
             stripped = lines[i].lstrip()
-            if stripped.startswith(f"{key} ") or stripped.startswith(f"{key}="):
+            if not stripped.startswith("#") and "=" in stripped and \
+                    stripped.split("=", 1)[0].strip().strip('"') == key:
                 lines[i] = rendered
                 break
         else:
@@ -283,6 +301,8 @@ def write_config_atomically(path: Path, text: str) -> None:
     config_from_dict(tomllib.loads(text), path)  # refuse to write what would not load
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
     try:
+        if path.exists():
+            os.chmod(tmp, path.stat().st_mode & 0o7777)  # keep the file's permissions, not mkstemp's 0600
         with os.fdopen(fd, "w", encoding="utf-8") as fh:
             fh.write(text)
             fh.flush()

@@ -41,7 +41,7 @@ from triage.core.metrics import (
     solve_cutoff,
 )
 from triage.core.model import ModelSpec, NaiveBayes
-from triage.core.routing import HELD_WATCH, HELD_WORD, RoutingPolicy, Verdict, decide, watch_hits
+from triage.core.routing import HELD_WATCH, HELD_WORD, RoutingPolicy, Verdict, decide, plain_words, watch_hits
 from triage.core.selection import fit_rows, n_folds_for, out_of_fold_jll, quick_grid, select, subset
 from triage.core.tokens import Tokenizer
 from triage.ingest import IngestResult, read_items
@@ -78,6 +78,13 @@ class _AlreadyApplied(Exception):
     """Another process applied the correction first."""
 
 
+def _check_parent(store: Store, parent: int | None) -> None:
+    """Inside a write transaction: the version a new one is built on must still be the active one."""
+    current = store.active_model()
+    if (current.version if current else None) != parent:
+        raise _StaleVersion
+
+
 @dataclass
 class Measurement:
     """An honest measurement of one model setting on the current labels."""
@@ -97,6 +104,7 @@ class Measurement:
     # k-fold split only: the outer fold of each held-out row, and each fold's own policy (calibration, cutoffs)
     holdout_folds: np.ndarray | None = None
     fold_policies: list[RoutingPolicy] = field(default_factory=list)
+    holdout_jll: np.ndarray | None = None  # time split: the held-out joint log-likelihoods, before calibration
     # when routing uses cutoffs other than the solved ones (set by hand): those, and the scorecard at them
     active_cutoffs: dict[str, float | None] | None = None
     at_active: Scorecard | None = None
@@ -152,6 +160,7 @@ class TrainReport:
     selection: list[dict[str, Any]]
     n_items: int
     seconds: float
+    warnings: list[str] = field(default_factory=list)
 
 
 @dataclass
@@ -213,8 +222,39 @@ class Workspace:
         self.store = store
         self._lock = threading.RLock()
         self._active: _Active | None = None
+        self._config_stamp = self._stamp()
         self._load_active()
         self._replay_pending()
+
+    def _stamp(self) -> int | None:
+        try:
+            return (self.root / CONFIG_NAME).stat().st_mtime_ns
+        except OSError:
+            return None
+
+    def _reload_config_if_changed(self) -> None:
+        """A long-running service sees edits to triage.toml (a queue newly marked never-auto, new watch words)
+        without a restart; a config that no longer loads is ignored until it is fixed."""
+        stamp = self._stamp()
+        if stamp == self._config_stamp:
+            return
+        self._config_stamp = stamp
+        try:
+            config = load_config(self.root / CONFIG_NAME)
+        except ConfigError:
+            return
+        self.config = config
+        if self._active is not None:
+            p = self._active.policy
+            self._active.policy = replace(p, never_auto=p.never_auto | config.never_auto(),
+                                          watch_probability=config.watch_probability)
+
+    def config_warnings(self, labels: set[str] | None = None) -> list[str]:
+        """Config entries that match nothing: a queue named in [queues] that no item carries gets no safeguard."""
+        labels = labels if labels is not None else set(self.store.queue_counts())
+        return [f"{self.root / CONFIG_NAME}: [queues.{q}] names no queue of the labelled items "
+                f"(queues: {', '.join(sorted(labels))}); check the spelling, its rules apply to nothing"
+                for q in self.config.queues if q not in labels]
 
     # ----- opening ---------------------------------------------------------------------------------------
     @classmethod
@@ -282,6 +322,7 @@ class Workspace:
     def refresh_if_changed(self) -> bool:
         """Pick up a model version activated by another process (training, rollback); True if it changed."""
         with self._lock:  # read and swap under the lock, so a correction cannot slip in between
+            self._reload_config_if_changed()
             mv = self.store.active_model()
             current = self._active.version.version if self._active else None
             if (mv.version if mv else None) == current:
@@ -338,7 +379,7 @@ class Workspace:
         hold_batch = enc.transform([r.fields for r in newer], allow_missing=True, keep_words=True)
         hold_jll = model.joint_log_likelihood(hold_batch)
         probs = policy.calibrated(hold_jll)
-        hits = self._hits(hold_batch.words or ())
+        hits = self._hits(newer)
         verdicts = decide(probs, model.queues, policy, hits)
         # the same figures on the newest items, which calibration never saw (an isotonic map is judged here)
         calibration["holdout"] = _reliability_figures(
@@ -350,8 +391,10 @@ class Workspace:
                          targets={q: self.config.policy(q).target_precision for q in all_queues})
         split = {"kind": "time", "train_items": len(older), "test_items": len(newer),
                  "test_from": newer[0].arrived_at, "test_to": newer[-1].arrived_at}
-        return Measurement(spec, policy, card, calibration, cutoff_info, split, [r.item_id for r in newer],
+        meas = Measurement(spec, policy, card, calibration, cutoff_info, split, [r.item_id for r in newer],
                            [r.label or "" for r in newer], probs, list(model.queues), hits)
+        meas.holdout_jll = hold_jll
+        return meas
 
     def measure_kfold(self, spec: ModelSpec, recs: Sequence[ItemRecord] | None = None, folds: int = 5,
                       progress: Progress | None = None) -> Measurement:
@@ -395,7 +438,7 @@ class Workspace:
             policies.append(policy)
             fold_info.append({"fold": f, "train_items": len(train), "test_items": len(test),
                               "temperature": cal["temperature"], "isotonic": cal["isotonic"], "cutoffs": cut})
-        hits = self._hits(enc.transform([r.fields for r in recs], allow_missing=True, keep_words=True).words or ())
+        hits = self._hits(recs)
         meas = Measurement(spec, policies[0], scorecard([], [], np.empty(0), queues, {}), {}, {}, {},
                            [r.item_id for r in recs], labels, probs, queues, hits, fold_of, policies)
         verdicts = meas.verdicts()
@@ -439,7 +482,10 @@ class Workspace:
         say("reading labelled items", 0.0)
         with self._lock:  # the labels and the newest correction are read together
             recs = self._labelled()
-            mark = max((c.id for c in self.store.corrections()), default=0)
+            journal = self.store.corrections()
+            pending = [c.id for c in journal if c.status == "pending"]
+            # corrections after the mark are replayed on the new model; a pending one may be applied meanwhile
+            mark = (min(pending) - 1) if pending else max((c.id for c in journal), default=0)
         base = spec_from_config(self.config)
         selection: list[dict[str, Any]] = []
         m = self.config.model
@@ -473,7 +519,8 @@ class Workspace:
         version = self._save_trained(model, recs, measurement, selection, note or "trained", kind="train",
                                      corrections_after=mark)
         say("done", 1.0)
-        return TrainReport(version, measurement, selection, len(recs), time.perf_counter() - t0)
+        return TrainReport(version, measurement, selection, len(recs), time.perf_counter() - t0,
+                           self.config_warnings({r.label or "" for r in recs}))
 
     def _save_trained(self, model: NaiveBayes, recs: Sequence[ItemRecord], meas: Measurement,
                       selection: list[dict[str, Any]], note: str, kind: str,
@@ -484,7 +531,6 @@ class Workspace:
         labels = [r.label or "" for r in recs]
         fp = fingerprint(ids, labels, self.config)
         with self._lock:
-            parent = self.active_version.version if self.active_version else None
             name = f"{MODELS_DIR}/m{int(time.time() * 1000):x}-{fp[:8]}"
             extra = {"policy": meas.policy.to_dict(), "trained_ids": ids, "trained_labels": labels,
                      "calibration": meas.calibration, "cutoffs": meas.cutoffs, "selection": selection}
@@ -493,13 +539,17 @@ class Workspace:
                       "corrections": [], "split": meas.split, "calibration": {
                           k: v for k, v in meas.calibration.items() if k != "reliability"}}
             fresh = _Active(None, model, meas.policy, dict(zip(ids, labels, strict=True)), name, [])  # type: ignore[arg-type]
-            if corrections_after is not None:
-                for c in self.store.corrections():
-                    if c.id > corrections_after and c.status != "pending":
-                        self._learn_correction(fresh, c)
-            config["corrections"] = list(fresh.corrections)
-            mv = self.store.add_model_version(parent, kind, config, fp, name, scorecard=meas.scorecard.to_dict(),
-                                              note=note)
+            # the journal is read and the version added under one write lock: no correction slips in between
+            with self.store.transaction():
+                if corrections_after is not None:
+                    for c in self.store.corrections():
+                        if c.id > corrections_after and c.status != "pending":
+                            self._learn_correction(fresh, c)
+                config["corrections"] = list(fresh.corrections)
+                current = self.store.active_model()
+                parent = current.version if current else None
+                mv = self.store.add_model_version(parent, kind, config, fp, name,
+                                                  scorecard=meas.scorecard.to_dict(), note=note)
             fresh.version = mv
             self._active = fresh
         return mv
@@ -521,9 +571,11 @@ class Workspace:
 
         other = {q: c for q, c in active.policy.cutoffs.items()
                  if q in meas.model_queues and not same(c, meas.policy.cutoffs.get(q))}
-        if other:
+        if other and meas.holdout_jll is not None:
+            # the same held-out rows decided exactly as routing decides: the active version's calibration too
             meas.active_cutoffs = other
-            meas.at_active = meas.rescore({**dict(meas.policy.cutoffs), **other})
+            meas.at_active = _score_under(meas, replace(active.policy,
+                                                        cutoffs={**dict(meas.policy.cutoffs), **other}))
         return meas
 
     # ----- routing ---------------------------------------------------------------------------------------
@@ -560,7 +612,7 @@ class Workspace:
             model = active.model
             batch = model.encoder.transform([r.fields for r in records], allow_missing=True, keep_words=True)
             probs = active.policy.calibrated(model.joint_log_likelihood(batch))
-            verdicts = decide(probs, model.queues, active.policy, self._hits(batch.words or ()))
+            verdicts = decide(probs, model.queues, active.policy, self._hits(records))
             top = np.array([v.top_index for v in verdicts])
             runner = np.array([v.runner_up_index for v in verdicts])
             evidence = strongest_batch(model, batch, top, runner, EVIDENCE_TERMS) if len(model.queues) > 1 \
@@ -570,12 +622,13 @@ class Workspace:
                          for r, v, ev, unk in zip(records, verdicts, evidence, unknown, strict=True)]
             return decisions, batch
 
-    def _hits(self, words_per_item: Sequence[Iterable[str]]) -> list[list[str]] | None:
-        """Watch-word hits per item (None when no queue has watch words)."""
+    def _hits(self, records: Sequence[ItemRecord]) -> list[list[str]] | None:
+        """Watch-word hits per item, on the plain words of every text field (None when no queue has any)."""
         watch = self.config.watch_words()
         if not watch:
             return None
-        return [watch_hits(list(words), watch) for words in words_per_item]
+        names = [f.name for f in self.config.schema.text_fields]
+        return [watch_hits({w for n in names for w in plain_words(r.fields.get(n))}, watch) for r in records]
 
     def route_records(self, records: Sequence[ItemRecord], source: str) -> tuple[list[dict[str, Any]], int]:
         """Decide, store the items (so they can be corrected later) and the decisions in one transaction;
@@ -644,7 +697,7 @@ class Workspace:
             enc = replace(batch.row(0), unknown_tokens=(batch.unknown or ((),))[0])
             jll = active.model.joint_log_likelihood_one(enc)
             probs = active.policy.calibrated(jll)
-            verdict = decide(probs, active.model.queues, active.policy, self._hits(batch.words or ()))[0]
+            verdict = decide(probs, active.model.queues, active.policy, self._hits([rec]))[0]
             ev = explain_item(active.model, enc, verdict.top_index, verdict.runner_up_index)
         return {
             "id": item_id, "label": rec.label, "fields": rec.fields, "queue": verdict.queue,
@@ -728,8 +781,13 @@ class Workspace:
                    extra={"policy": active.policy.to_dict(), "trained_ids": ids, "trained_labels": labels})
         config = dict(active.version.config)
         config.update({"corrections": [], "base_artifact": name})
-        mv = self.store.add_model_version(active.version.version, "correction", config, fp, name,
-                                          scorecard=active.version.scorecard, note="snapshot of corrections")
+        try:
+            with self.store.transaction():
+                _check_parent(self.store, active.version.version)
+                mv = self.store.add_model_version(active.version.version, "correction", config, fp, name,
+                                                  scorecard=active.version.scorecard, note="snapshot of corrections")
+        except _StaleVersion:
+            return  # another process moved on; its version is loaded at the next refresh, the snapshot is unused
         active.version, active.base_artifact, active.corrections = mv, name, []
 
     def _replay_pending(self) -> None:
@@ -751,6 +809,7 @@ class Workspace:
             raise WorkspaceError("the queue to correct to is empty")
         with self._lock:
             self.refresh_if_changed()  # correct the newest model, whoever activated it
+            self._replay_pending()  # a correction left pending by a failed commit is finished first
             active = self._require_model()
             rec = self.store.get_item(item_id)
             if rec is None:
@@ -806,22 +865,31 @@ class Workspace:
                     raise WorkspaceError(f"cutoff for {q!r} must be between 0 and 1, got {c}")
                 if q in active.policy.never_auto and c is not None:
                     raise WorkspaceError(f"{q!r} is a never-auto queue: a person reviews every item, it takes no cutoff")
-            merged = dict(active.policy.cutoffs)
-            merged.update({q: None if c is None else float(c) for q, c in cutoffs.items()})
-            policy = replace(active.policy, cutoffs=merged)
-            if scorecard is None:  # the new version's scorecard: the same held-out rows at the new cutoffs
+            if scorecard is None:  # the new version's scorecard: the held-out rows decided as it will decide
                 meas = self.measure(active.model.spec)
-                scorecard = meas.rescore({**dict(meas.policy.cutoffs),
-                                          **{q: c for q, c in merged.items() if q in meas.model_queues}}).to_dict()
-            config = dict(active.version.config)
-            config.update({"policy": policy.to_dict(), "corrections": list(active.corrections),
-                           "base_artifact": active.base_artifact})
+                merged = {**dict(meas.policy.cutoffs), **dict(active.policy.cutoffs), **cutoffs}
+                scorecard = _score_under(meas, replace(active.policy, cutoffs=merged)).to_dict()
             changed = ", ".join(f"{q} {'none' if c is None else f'{c:.3f}'}" for q, c in sorted(cutoffs.items()))
-            mv = self.store.add_model_version(active.version.version, "adopt", config, active.version.fingerprint,
-                                              active.base_artifact, scorecard=scorecard,
-                                              note=f"cutoffs set by {by}: {changed}")
-            active.version, active.policy = mv, policy
-            return mv
+            for _attempt in range(5):
+                self.refresh_if_changed()  # build on the newest version, whoever made it
+                active = self._require_model()
+                merged = dict(active.policy.cutoffs)
+                merged.update({q: None if c is None else float(c) for q, c in cutoffs.items()})
+                policy = replace(active.policy, cutoffs=merged)
+                config = dict(active.version.config)
+                config.update({"policy": policy.to_dict(), "corrections": list(active.corrections),
+                               "base_artifact": active.base_artifact})
+                try:
+                    with self.store.transaction():
+                        _check_parent(self.store, active.version.version)
+                        mv = self.store.add_model_version(active.version.version, "adopt", config,
+                                                          active.version.fingerprint, active.base_artifact,
+                                                          scorecard=scorecard, note=f"cutoffs set by {by}: {changed}")
+                except _StaleVersion:
+                    continue
+                active.version, active.policy = mv, policy
+                return mv
+            raise WorkspaceError("the active model kept changing; the cutoffs were not set, try again")
 
     def overview(self) -> dict[str, Any]:
         """Figures for a dashboard: items, queues, the active version and its scorecard summary, drift."""
@@ -904,6 +972,16 @@ def _fit_policy(config: Config, oof: np.ndarray, y: np.ndarray,
     policy = RoutingPolicy(cutoffs=cutoffs, never_auto=never, watch_probability=config.watch_probability,
                            temperature=scaler.temperature, isotonic=iso)
     return policy, calibration, cutoff_info
+
+
+def _score_under(meas: Measurement, policy: RoutingPolicy) -> Scorecard:
+    """The scorecard of a time-split measurement's held-out rows decided by another policy (its calibration
+    and its cutoffs), as routing under that policy would decide them."""
+    assert meas.holdout_jll is not None
+    verdicts = decide(policy.calibrated(meas.holdout_jll), meas.model_queues, policy, meas.holdout_hits)
+    return scorecard(meas.holdout_labels, [v.suggested for v in verdicts], _scored_confidence(verdicts),
+                     meas.scorecard.queues, policy.cutoffs, never_auto=policy.never_auto,
+                     targets={q.queue: q.target for q in meas.scorecard.per_queue})
 
 
 def _scored_confidence(verdicts: Sequence[Any]) -> np.ndarray:

@@ -9,11 +9,12 @@ mentions smoke costs far more than a second look.
 
 from __future__ import annotations
 
-import re
+import unicodedata
 from collections.abc import Collection, Mapping, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
+import regex
 
 from triage.core.calibrate import IsotonicCalibrator
 from triage.core.model import log_posterior
@@ -23,7 +24,7 @@ HELD_NEVER_AUTO = "never auto-routed: a person reviews every item here"
 HELD_NO_CUTOFF = "no cutoff meets this queue's target precision yet"
 HELD_WATCH = "may belong to a never-auto queue"
 HELD_WORD = "mentions a watch word of"
-_WATCH_SPLIT = re.compile(r"[\s\-/]+")
+_PLAIN_WORD = regex.compile(r"[\p{L}\p{M}\p{N}]+")
 
 
 @dataclass(frozen=True)
@@ -84,15 +85,25 @@ class Verdict:
     runner_up_index: int
 
 
-def watch_hits(words: Collection[str], watch_words: Mapping[str, Sequence[str]]) -> list[str]:
-    """'queue: entry' for every watch entry the item's words match.
+def plain_words(text: str | None) -> list[str]:
+    """The words of a text for watch-word matching: NFKC, casefolded, runs of letters, marks and digits.
 
-    An entry is one or more word starts ("burn", "carbon monox", "self-harm"): it matches when every one of its
-    parts starts one of the item's words (the tokenizer splits "self-harm" into "self" and "harm")."""
+    Deliberately not the model's tokens: those fold "SN-48213-smoking" into one identifier, and a safeguard
+    must see every word a person could read."""
+    if not text or not isinstance(text, str):
+        return []
+    return _PLAIN_WORD.findall(unicodedata.normalize("NFKC", text).casefold())
+
+
+def watch_hits(words: Collection[str], watch_words: Mapping[str, Sequence[str]]) -> list[str]:
+    """'queue: entry' for every watch entry the item's words (see plain_words) match.
+
+    An entry is one or more word starts ("burn", "carbon monox", "self-harm", "can't breathe"), split into words
+    the same way as the text: it matches when every one of its parts starts one of the item's words."""
     hits = []
     for queue, entries in watch_words.items():
         for entry in entries:
-            parts = [p for p in _WATCH_SPLIT.split(entry) if p]
+            parts = plain_words(entry)
             if parts and all(any(tok.startswith(p) for tok in words) for p in parts):
                 hits.append(f"{queue}: {entry}")
     return hits
