@@ -13,6 +13,7 @@ from textual import events
 from textual.app import App, ComposeResult
 from textual.binding import Binding
 from textual.command import DiscoveryHit, Hit, Hits, Provider
+from textual.css.query import NoMatches
 from textual.widgets import Footer, Header, TabbedContent, TabPane
 
 from triage.tui.messages import LabelsChanged, ModelChanged
@@ -120,7 +121,14 @@ class TriageApp(App[None]):
 
     def on_tabbed_content_tab_activated(self, event: TabbedContent.TabActivated) -> None:
         if event.pane.id:
-            self.call_after_refresh(self.view(event.pane.id).focus_main)
+            self.call_after_refresh(self._focus_view, event.pane.id)
+
+    def _focus_view(self, key: str) -> None:
+        try:
+            view = self.view(key)
+        except NoMatches:  # the app is closing: the views are gone
+            return
+        view.focus_main()
 
     def action_reload(self) -> None:
         self.ws.refresh_if_changed()

@@ -18,7 +18,7 @@ from rich.text import Text
 from textual import work
 from textual.app import ComposeResult
 from textual.binding import Binding
-from textual.containers import Container, Horizontal, VerticalScroll
+from textual.containers import Container, Horizontal, Vertical, VerticalScroll
 from textual.widget import Widget
 from textual.widgets import DataTable, Input, Label, OptionList, ProgressBar, Select, Static
 from textual.widgets.option_list import Option
@@ -36,6 +36,7 @@ from triage.tui.widgets import (
     explanation_renderables,
     num,
     pct,
+    reliability_chart,
     shade,
     text_plot,
 )
@@ -432,6 +433,8 @@ class ScorecardView(View):
         Binding("r", "reset", "Reset", id="score.reset", tooltip="Back to the active model's cutoffs"),
         Binding("e", "remeasure", "Re-score", id="score.remeasure",
                 tooltip="Score the held-out items again with the current labels"),
+        Binding("c", "toggle_reliability", "Raw/calib.", id="score.reliability", show=False,
+                tooltip="Reliability chart: the calibrated routing confidence, or the raw posterior"),
     ]
 
     def __init__(self, ws: Workspace, **kw: Any) -> None:
@@ -443,13 +446,16 @@ class ScorecardView(View):
         self.cutoffs: dict[str, float | None] = {}  # the what-if cutoffs on screen
         self.curves: dict[str, dict[str, list[float]]] = {}
         self.card: Scorecard | None = None
+        self.raw_reliability = False  # c: the raw posterior's reliability instead of the routing confidence's
 
     def compose(self) -> ComposeResult:
         yield Static(id="score-summary")
         with VerticalScroll(id="score-scroll"):
             yield DataTable(id="queue-table", cursor_type="row")
             with Horizontal(id="score-lower"):
-                yield Static(id="score-plot")
+                with Vertical(id="score-charts"):
+                    yield Static(id="score-plot")
+                    yield Static(id="score-reliability")
                 yield Static(id="score-matrix")
 
     def on_mount(self) -> None:
@@ -629,6 +635,41 @@ class ScorecardView(View):
             t.move_cursor(row=min(max(row, 0), t.row_count - 1))
         self.query_one("#score-matrix", Static).update(confusion_table(card.queues, card.matrix, card.row_shares()))
         self.show_plot()
+        self.show_reliability()
+
+    def reliability_figures(self) -> tuple[dict[str, Any], str] | None:
+        """The measurement's calibration figures on items calibration never saw, and which items: the newest
+        items of a time split (`holdout`), else the out-of-fold decisions of a k-fold split."""
+        if self.meas is None:
+            return None
+        cal = self.meas.calibration
+        if isinstance(cal.get("holdout"), dict):
+            return cal["holdout"], "the newest, held out"
+        return cal, "out-of-fold decisions"
+
+    def show_reliability(self) -> None:
+        box = self.query_one("#score-reliability", Static)
+        got = self.reliability_figures()
+        if got is None:
+            box.update(Text("reliability: waiting for the held-out scores", style="dim"))
+            return
+        figs, where = got
+        bins = figs.get("reliability_before" if self.raw_reliability else "reliability") or []
+        n = sum(int(b["n"]) for b in bins)
+        what, other = ("raw posterior", "calibrated") if self.raw_reliability else ("routing confidence", "raw")
+        title = Text(f"reliability of the {what}", style="bold")
+        sub = Text(f"{n} items, {where} · c: {other}", style="dim")
+        ece = Text("ECE before ")
+        ece.append(num(figs.get("ece_before"), 3), style="bold")
+        ece.append(" → after ")
+        ece.append(num(figs.get("ece_after"), 3), style="bold")
+        if figs.get("ece_temperature") is not None:
+            ece.append(f" · temperature only {num(figs['ece_temperature'], 3)}", style="dim")
+        box.update(Group(title, sub, ece, reliability_chart(bins, width=16)))
+
+    def action_toggle_reliability(self) -> None:
+        self.raw_reliability = not self.raw_reliability
+        self.show_reliability()
 
     def show_plot(self) -> None:
         q = self.selected_queue()
@@ -1000,10 +1041,50 @@ class ReviewView(View):
 
 
 # ======================================================================================== 6. field tables
+PAIR_ROWS = 12
+
+
+def is_word(name: str) -> bool:
+    """Whether a name from the independence check is a word (listed as "word 'x'") rather than a field."""
+    return name.startswith("word '")
+
+
+def merge_table(result: dict[str, Any]) -> Group:
+    """try_merge's figures: the two fields apart and merged into one joint field, side by side."""
+    t = Table(box=None, show_edge=False, pad_edge=False, padding=(0, 2), header_style="bold")
+    t.add_column("")
+    t.add_column("accuracy", justify="right")
+    t.add_column("macro F1", justify="right")
+    t.add_column("log loss", justify="right")
+    for key in ("apart", "merged"):
+        r = result[key]
+        t.add_row(key, pct(r["accuracy"]), num(r["macro_f1"], 3), num(r["log_loss"], 3))
+    head = Text(f"{result['a']} and {result['b']}, apart vs merged into {result['field']} ({result['levels']} "
+                f"values seen), {result['folds']}-fold cross-validated:", style="bold")
+    verdict = (Text("→ merging helps: log loss falls and macro F1 holds", style="bold green") if result["merge_helps"]
+               else Text("→ merging does not help (it would need a lower log loss and no lower macro F1)"))
+    return Group(head, t, verdict)
+
+
 class FieldsView(View):
-    """Per value field: the value-by-queue counts and the smoothed probabilities, unseen column included."""
+    """Per value field: the value-by-queue counts and the smoothed probabilities, unseen column included; the
+    independence check (conditional mutual information given the queue) and trying a merge of two fields."""
 
     main_id = "field-list"
+    MERGE_FOLDS = 5
+    BINDINGS = [
+        Binding("i", "pairs", "Pairs", id="fields.pairs",
+                tooltip="Go to the independence check: pairs most dependent given the queue"),
+        Binding("m", "merge", "Try merge", id="fields.merge",
+                tooltip="Cross-validate the selected pair of fields apart and merged into one field"),
+    ]
+
+    def __init__(self, ws: Workspace, **kw: Any) -> None:
+        super().__init__(ws, **kw)
+        self.pairs: list[dict[str, Any]] = []
+        self.pairs_checked = 0
+        self.pairs_for: int | None = None  # the model version the pairs were checked on
+        self.merge_result: dict[str, Any] | None = None
 
     def compose(self) -> ComposeResult:
         with Horizontal():
@@ -1013,8 +1094,13 @@ class FieldsView(View):
                 yield DataTable(id="field-counts", cursor_type="none")
                 yield Label("smoothed P(value | queue)   (shade: ░▒▓█ by size)", id="field-prob-title")
                 yield DataTable(id="field-probs", cursor_type="none")
+                yield Label("independence given the queue: checking…", id="pairs-title")
+                yield DataTable(id="pairs-table", cursor_type="row", zebra_stripes=True)
+                yield Static("", id="merge-result")
 
     def on_mount(self) -> None:
+        t = self.query_one("#pairs-table", DataTable)
+        t.add_columns("", "a", "b", "CMI (nats)", "merge")
         self.reload()
 
     def reload(self) -> None:
@@ -1026,10 +1112,106 @@ class FieldsView(View):
         if ol.option_count:
             ol.highlighted = keep if keep is not None and keep < ol.option_count else 0
             self.show_field(ol.highlighted)
+        mv = self.ws.active_version
+        if mv is None:
+            self.pairs, self.pairs_for = [], None
+            self.show_pairs()
+        else:
+            if self.pairs_for != mv.version:
+                self.merge_result = None  # figures of other labels
+                self.query_one("#merge-result", Static).update("")
+            self.check_pairs()
 
+    # ----- the independence check -----
+    @work(thread=True, exclusive=True, exit_on_error=False, group="independence")
+    def check_pairs(self) -> list[dict[str, Any]]:
+        worker = get_current_worker()
+        version = self.ws.active_version.version if self.ws.active_version else None
+        pairs = tuning.independence(self.ws)
+        if not worker.is_cancelled:
+            self.app.call_from_thread(self._checked, pairs, version)
+        return pairs
+
+    def _checked(self, pairs: list[dict[str, Any]], version: int | None) -> None:
+        self.pairs_checked = len(pairs)
+        flagged = sum(1 for p in pairs if p["flagged"])
+        self.pairs = pairs[:max(PAIR_ROWS, flagged)]
+        self.pairs_for = version
+        self.show_pairs()
+
+    def show_pairs(self) -> None:
+        t = self.query_one("#pairs-table", DataTable)
+        title = self.query_one("#pairs-title", Label)
+        row = t.cursor_row
+        t.clear()
+        if self.ws.active_version is None:
+            title.update("independence given the queue: no model yet")
+            return
+        flagged = sum(1 for p in self.pairs if p["flagged"])
+        title.update(f"independence given the queue: {self.pairs_checked} pairs checked, {flagged} flagged "
+                     f"(CMI > {tuning.CMI_FLAG:g} nats) · top {len(self.pairs)} · i goes here · m tries a merge")
+        for k, p in enumerate(self.pairs):
+            mark = Text("! dependent", style="bold yellow") if p["flagged"] else ""
+            fields = not (is_word(p["a"]) or is_word(p["b"]))
+            t.add_row(mark, p["a"], p["b"], f"{p['cmi_nats']:.4f}", "m" if fields else "—", key=str(k))
+        if t.row_count:
+            t.move_cursor(row=min(max(row, 0), t.row_count - 1))
+
+    def action_pairs(self) -> None:
+        t = self.query_one("#pairs-table", DataTable)
+        t.focus()
+        t.scroll_visible(animate=False)
+
+    def selected_pair(self) -> dict[str, Any] | None:
+        t = self.query_one("#pairs-table", DataTable)
+        if not t.row_count or not self.pairs:
+            return None
+        return self.pairs[int(t.coordinate_to_cell_key((t.cursor_row, 0)).row_key.value or 0)]
+
+    @property
+    def merging(self) -> bool:
+        return any(w.state in (WorkerState.PENDING, WorkerState.RUNNING) for w in self.app.workers
+                   if w.group == "merge")
+
+    def action_merge(self) -> None:
+        pair = self.selected_pair()
+        if pair is None:
+            self.notify("the independence check has not finished yet")
+            return
+        if is_word(pair["a"]) or is_word(pair["b"]):
+            self.notify("only two fields can be merged; a word belongs to the text model (pick a pair of fields)")
+            return
+        if self.merging:
+            self.notify("a merge is already being tried")
+            return
+        self.query_one("#merge-result", Static).update(Text(
+            f"trying {pair['a']} × {pair['b']}: {self.MERGE_FOLDS}-fold, apart and merged…", style="dim"))
+        self.try_merge(pair["a"], pair["b"])
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="merge")
+    def try_merge(self, a: str, b: str) -> dict[str, Any]:
+        result = tuning.try_merge(self.ws, a, b, folds=self.MERGE_FOLDS)
+        self.app.call_from_thread(self._merged, result)
+        return result
+
+    def _merged(self, result: dict[str, Any]) -> None:
+        self.merge_result = result
+        box = self.query_one("#merge-result", Static)
+        box.update(merge_table(result))
+        self.call_after_refresh(box.scroll_visible, animate=False)
+
+    def on_worker_state_changed(self, event: Worker.StateChanged) -> None:
+        if event.worker.group in ("independence", "merge") and event.state == WorkerState.ERROR:
+            what = "the independence check" if event.worker.group == "independence" else "the merge"
+            if event.worker.group == "merge":
+                self.query_one("#merge-result", Static).update(Text(f"{what} failed", style="red"))
+            else:
+                self.query_one("#pairs-title", Label).update(f"independence given the queue: {what} failed")
+            _err(self, event.worker.error or Exception(f"{what} failed"))
+
+    # ----- value-by-queue tables -----
     def on_option_list_option_highlighted(self, event: OptionList.OptionHighlighted) -> None:
         self.show_field(event.option_index)
-
     def show_field(self, k: int | None) -> None:
         model = self.ws.model
         counts_t = self.query_one("#field-counts", DataTable)

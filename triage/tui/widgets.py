@@ -195,6 +195,37 @@ def text_plot(xs: Sequence[float], ys: Sequence[float], mark: tuple[float, float
     return out
 
 
+ACC_MARK = "█"
+CONF_MARK = "│"
+
+
+def reliability_chart(bins: Sequence[Mapping[str, Any]], width: int = 20) -> Text:
+    """One line per confidence bin: accuracy as a bar of █, the bin's mean confidence as │ on the same scale.
+
+    A calibrated bin has its │ right at the end of its bar (the diagonal); a │ beyond the bar means the
+    confidences there promise more than they deliver, one inside the bar that they promise less. The
+    numbers are printed too, so nothing depends on colour.
+    """
+    if not bins:
+        return Text("(no items in any confidence bin)", style="dim")
+    out = Text()
+    out.append(f"{'bin':<8}{'n':>5}  {'0':<{width}}1  acc.  conf.   gap\n", style="bold")
+    for b in bins:
+        acc, conf = float(b["accuracy"]), float(b["mean_confidence"])
+        cells = [ACC_MARK if i < round(acc * width) else " " for i in range(width + 1)]
+        c = min(width, round(conf * width))
+        cells[c] = CONF_MARK
+        out.append(f"{b['lo']:.1f}–{b['hi']:.1f} {int(b['n']):>5}  ")
+        for ch in cells:
+            out.append(ch, style="bold yellow" if ch == CONF_MARK else "cyan" if ch == ACC_MARK else "")
+        gap = acc - conf
+        out.append(f" {acc:5.2f}  {conf:5.2f}  ")
+        out.append(f"{gap:+.2f}", style="red" if abs(gap) >= 0.1 else "")
+        out.append("\n")
+    out.append(f"{ACC_MARK} accuracy · {CONF_MARK} mean confidence (at the bar's end: calibrated)", style="dim")
+    return out
+
+
 # ----- small screens ----------------------------------------------------------------------------------------
 class ConfirmScreen(ModalScreen[bool]):
     """Ask a yes/no question; dismisses with True for yes."""
