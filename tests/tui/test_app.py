@@ -5,22 +5,17 @@ Each test checks the screen and, where something changes, the store and the mode
 
 from __future__ import annotations
 
-import asyncio
-import html
-import re
 import subprocess
 import sys
 import tomllib
-from io import StringIO
 from pathlib import Path
 
 import numpy as np
-from rich.console import Console
 from textual import events
 from textual.widgets import DataTable, Static
 
 from triage import tuning
-from triage.tui.app import TriageApp, make_app
+from triage.tui.app import TriageApp
 from triage.tui.views import (
     FieldsView,
     IncomingView,
@@ -33,43 +28,9 @@ from triage.tui.views import (
 from triage.tui.widgets import ConfirmScreen, HelpScreen, QueuePicker, marked_text, pct, shade
 from triage.workspace import Workspace
 
-SIZE = (100, 32)
+from .pilot import run, screen_text, settle, text_of
+
 ROOT = Path(__file__).resolve().parents[2]
-
-
-def screen_text(app: TriageApp) -> str:
-    """The screen as plain text (the exported SVG without its markup)."""
-    svg = app.export_screenshot(simplify=True)
-    body = svg[svg.find("<g class"):] if "<g class" in svg else svg
-    return html.unescape(re.sub(r"<[^>]+>", "", body)).replace("\xa0", " ")
-
-
-def text_of(widget: Static) -> str:
-    console = Console(width=200, file=StringIO(), color_system=None)
-    console.print(widget.content)
-    return console.file.getvalue()  # type: ignore[attr-defined]
-
-
-async def settle(app: TriageApp, pilot) -> None:  # noqa: ANN001 - the pilot's type is generic
-    """Wait for every worker, then for the messages they posted."""
-    await pilot.pause()
-    await app.workers.wait_for_complete()
-    await pilot.pause()
-    await app.workers.wait_for_complete()
-    await pilot.pause()
-
-
-def run(coro_fn, workspace_path: Path, size: tuple[int, int] = SIZE):  # noqa: ANN001, ANN201
-    async def inner():  # noqa: ANN202
-        app = make_app(workspace_path)
-        try:
-            async with app.run_test(size=size) as pilot:
-                await settle(app, pilot)
-                return await coro_fn(app, pilot)
-        finally:
-            app.ws.close()
-
-    return asyncio.run(inner())
 
 
 def test_every_view_shows_the_workspace(workspace_path: Path) -> None:
