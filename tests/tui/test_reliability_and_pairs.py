@@ -59,9 +59,12 @@ def test_scorecard_shows_reliability_on_the_newest_items(workspace_path: Path) -
             blocks, mark = round(b["accuracy"] * 16), round(b["mean_confidence"] * 16)
             assert line.count(ACC_MARK) == blocks - (mark < blocks)
             assert line.index(CONF_MARK) == 15 + mark  # the bar starts after "0.9–1.0   834  "
-        # c shows the raw posterior's bins, c again the calibrated ones
+        # c shows the raw posterior's bins (and scrolls down to them), c again the calibrated ones
+        scroll = app.query_one("#score-scroll")
+        assert scroll.scroll_y == 0
         await pilot.press("c")
-        await pilot.pause()
+        await pilot.pause(0.1)
+        assert scroll.scroll_y > 0 and box.region.bottom <= scroll.region.bottom
         raw = text_of(box)
         assert "reliability of the raw posterior" in raw
         assert [r.split()[1] for r in chart_rows(raw)] == [str(b["n"]) for b in hold["reliability_before"]]

@@ -434,7 +434,7 @@ class ScorecardView(View):
         Binding("e", "remeasure", "Re-score", id="score.remeasure",
                 tooltip="Score the held-out items again with the current labels"),
         Binding("c", "toggle_reliability", "Raw/calib.", id="score.reliability", show=False,
-                tooltip="Reliability chart: the calibrated routing confidence, or the raw posterior"),
+                tooltip="Reliability chart: calibrated confidence or raw posterior (scrolls to it)"),
     ]
 
     def __init__(self, ws: Workspace, **kw: Any) -> None:
@@ -668,8 +668,12 @@ class ScorecardView(View):
         box.update(Group(title, sub, ece, reliability_chart(bins, width=16)))
 
     def action_toggle_reliability(self) -> None:
+        """Switch the chart between the calibrated and the raw confidences, and bring it into view (below the
+        queue table it is out of sight on a small terminal)."""
         self.raw_reliability = not self.raw_reliability
         self.show_reliability()
+        box = self.query_one("#score-reliability", Static)
+        self.call_after_refresh(box.scroll_visible, animate=False)
 
     def show_plot(self) -> None:
         q = self.selected_queue()
