@@ -194,6 +194,22 @@ def lift_for(ws: Workspace, queue: str) -> dict[str, Any]:
             "captured_top_20": captured_share(scores, positive, 0.20)}
 
 
+def _informative_terms(df: np.ndarray, n: np.ndarray, k: int) -> np.ndarray:
+    """The k words whose presence tells most about the queue (mutual information from the counts): the words
+    the model leans on, rather than the most frequent ones ("i", "a", "the") that carry little."""
+    total = n.sum()
+    if total == 0 or df.size == 0:
+        return np.empty(0, dtype=np.int64)
+    p_q = n / total  # (Q,)
+    p_t = df.sum(axis=0) / total  # (V,)
+    mi = np.zeros(df.shape[1])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        for joint, marg in ((df / total, p_t), ((n[:, None] - df) / total, 1 - p_t)):
+            term = joint * np.log(joint / (p_q[:, None] * marg[None, :]))
+            mi += np.nansum(np.where(joint > 0, term, 0.0), axis=0)
+    return np.argsort(-mi, kind="stable")[:k]
+
+
 def independence(ws: Workspace, top_terms: int = 15) -> list[dict[str, Any]]:
     """Conditional mutual information given the queue for field pairs and field x top-term pairs, from counts."""
     model = ws.model
@@ -208,8 +224,7 @@ def independence(ws: Workspace, top_terms: int = 15) -> list[dict[str, Any]]:
     fields = list(model.encoder.schema.value_fields)
     Q = len(model.queues)
     columns: list[tuple[str, np.ndarray]] = [(f.name, codes[:, k]) for k, f in enumerate(fields)]
-    df_total = model.counts.doc_freq_.sum(axis=0)
-    for j in np.argsort(-df_total)[:top_terms]:
+    for j in _informative_terms(model.counts.doc_freq_, model.counts.class_count_, top_terms):
         present = (np.asarray(X[:, j].todense()).ravel() > 0).astype(np.int64)
         columns.append((f"word '{model.encoder.terms_[j]}'", present))
     out = []
