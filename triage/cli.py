@@ -31,7 +31,8 @@ USER_ERRORS = (WorkspaceError, ConfigError, IngestError, StoreError, ArtifactErr
                FileNotFoundError, PermissionError, IsADirectoryError)
 
 SAFETY_NOTE = ("Queues marked never_auto (such as a safety queue) are never auto-routed: a person reviews every item "
-               "predicted there, and every item that gives such a queue a real chance.")
+               "predicted there, every item that gives such a queue a real chance, and every item that mentions "
+               "one of its watch words.")
 
 out = Console(highlight=False)
 err = Console(stderr=True, highlight=False)
