@@ -356,17 +356,18 @@ class Workspace:
         return enc, enc.fit_transform(items)
 
     def measure(self, spec: ModelSpec, recs: Sequence[ItemRecord] | None = None,
-                progress: Progress | None = None) -> Measurement:
+                progress: Progress | None = None,
+                encoded: tuple[Encoder, EncodedBatch] | None = None) -> Measurement:
         """Calibrate and choose cutoffs on out-of-fold scores of the older items, then score the newest
-        `HOLDOUT_SHARE` of items (by arrival time) with a model that never saw them: routing's real use."""
+        `HOLDOUT_SHARE` of items (by arrival time) with a model that never saw them: routing's real use.
+
+        `encoded` is the older items' encoding when the caller has it already (same tokenizer settings)."""
         say = progress or (lambda _s, _f: None)
         recs = list(recs) if recs is not None else self._labelled()
-        n_hold = max(1, int(round(len(recs) * HOLDOUT_SHARE)))
-        older, newer = recs[: len(recs) - n_hold], recs[len(recs) - n_hold:]
-        items = [r.fields for r in older]
+        older, newer = _time_split(recs)
         labels = [r.label or "" for r in older]
         say("tokenising", 0.1)
-        enc, batch = self._encode(spec, items)
+        enc, batch = encoded if encoded is not None else self._encode(spec, [r.fields for r in older])
         say("calibrating on out-of-fold scores", 0.3)
         oof, queues = out_of_fold_jll(enc, batch, labels, spec, folds=5)
         qi = {q: i for i, q in enumerate(queues)}
@@ -376,7 +377,7 @@ class Workspace:
         never, cutoffs = policy.never_auto, dict(policy.cutoffs)
         say("scoring the newest items", 0.7)
         model = fit_rows(enc, batch, labels, np.arange(len(labels)), spec, queues)
-        hold_batch = enc.transform([r.fields for r in newer], allow_missing=True, keep_words=True)
+        hold_batch = enc.transform([r.fields for r in newer], allow_missing=True)
         hold_jll = model.joint_log_likelihood(hold_batch)
         probs = policy.calibrated(hold_jll)
         hits = self._hits(newer)
@@ -488,15 +489,15 @@ class Workspace:
             mark = (min(pending) - 1) if pending else max((c.id for c in journal), default=0)
         base = spec_from_config(self.config)
         selection: list[dict[str, Any]] = []
+        encoded: tuple[Encoder, EncodedBatch] | None = None
         m = self.config.model
         if m.text_model == "auto" or m.alpha_text == "auto":
             specs = [s for s in quick_grid(base)
                      if (m.text_model == "auto" or s.text_model == m.text_model)
                      and (m.alpha_text == "auto" or s.alpha_text == float(m.alpha_text))]
-            n_hold = max(1, int(round(len(recs) * HOLDOUT_SHARE)))
-            older = recs[: len(recs) - n_hold]
-            items = [r.fields for r in older]
-            enc, batch = self._encode(base, items)
+            older, _ = _time_split(recs)
+            enc, batch = self._encode(base, [r.fields for r in older])
+            encoded = (enc, batch)  # the grid varies only the text model and alpha: measure reuses this pass
             check()
             say(f"comparing {len(specs)} settings by cross-validation", 0.05)
             def step(i: int, spec: ModelSpec) -> None:
@@ -508,7 +509,7 @@ class Workspace:
             selection = [s.to_dict() for s in scores]
             base = best.spec
         check()
-        measurement = self.measure(base, recs, progress=lambda s, f: say(s, 0.1 + 0.6 * f))
+        measurement = self.measure(base, recs, progress=lambda s, f: say(s, 0.1 + 0.6 * f), encoded=encoded)
         check()
         say("fitting the final model on every item", 0.8)
         items = [r.fields for r in recs]
@@ -610,7 +611,7 @@ class Workspace:
             if not records:
                 return [], None
             model = active.model
-            batch = model.encoder.transform([r.fields for r in records], allow_missing=True, keep_words=True)
+            batch = model.encoder.transform([r.fields for r in records], allow_missing=True, keep_unknown=True)
             probs = active.policy.calibrated(model.joint_log_likelihood(batch))
             verdicts = decide(probs, model.queues, active.policy, self._hits(records))
             top = np.array([v.top_index for v in verdicts])
@@ -693,7 +694,7 @@ class Workspace:
             rec = self.store.get_item(item_id)
             if rec is None:
                 raise WorkspaceError(f"{self.store.path}: no item with id {item_id!r}")
-            batch = active.model.encoder.transform([rec.fields], allow_missing=True, keep_words=True)
+            batch = active.model.encoder.transform([rec.fields], allow_missing=True, keep_unknown=True)
             enc = replace(batch.row(0), unknown_tokens=(batch.unknown or ((),))[0])
             jll = active.model.joint_log_likelihood_one(enc)
             probs = active.policy.calibrated(jll)
@@ -972,6 +973,12 @@ def _fit_policy(config: Config, oof: np.ndarray, y: np.ndarray,
     policy = RoutingPolicy(cutoffs=cutoffs, never_auto=never, watch_probability=config.watch_probability,
                            temperature=scaler.temperature, isotonic=iso)
     return policy, calibration, cutoff_info
+
+
+def _time_split(recs: Sequence[ItemRecord]) -> tuple[Sequence[ItemRecord], Sequence[ItemRecord]]:
+    """Older items to fit on and the newest `HOLDOUT_SHARE` (at least one) to score: recs are in arrival order."""
+    n_hold = max(1, int(round(len(recs) * HOLDOUT_SHARE)))
+    return recs[: len(recs) - n_hold], recs[len(recs) - n_hold:]
 
 
 def _score_under(meas: Measurement, policy: RoutingPolicy) -> Scorecard:

@@ -51,9 +51,8 @@ class EncodedBatch:
 
     X: sp.csr_matrix
     codes: np.ndarray
-    # per item, when asked for (routing): the tokens outside the vocabulary, and every distinct token seen
+    # per item, when asked for (routing): the distinct tokens outside the vocabulary, in text order
     unknown: tuple[tuple[str, ...], ...] | None = None
-    words: tuple[frozenset[str], ...] | None = None
 
     def __len__(self) -> int:
         return self.X.shape[0]
@@ -267,14 +266,12 @@ class Encoder:
         return EncodedItem(ids, counts, codes, tuple(dict.fromkeys(unknown)))
 
     def transform(self, items: Sequence[Mapping[str, Any]], *, allow_missing: bool = False,
-                  keep_words: bool = False) -> EncodedBatch:
+                  keep_unknown: bool = False) -> EncodedBatch:
         """Encode many items into a sparse count matrix and a code matrix.
 
-        `keep_words` also keeps each item's unseen tokens and distinct tokens (for decisions and watch words),
-        so routing tokenises each text once."""
+        `keep_unknown` also keeps each item's tokens outside the vocabulary (shown in decisions, counted for
+        drift), so routing tokenises each text once."""
         unknown_rows: list[tuple[str, ...]] = []
-        word_rows: list[frozenset[str]] = []
-        terms = self.terms_
         # typed buffers, not lists: 8 bytes a stored count instead of a list slot plus a boxed int or float
         indptr = array("q", [0])
         indices = array("q")
@@ -283,9 +280,8 @@ class Encoder:
         value_fields = self.schema.value_fields
         for i, item in enumerate(items):
             acc, unknown = self.token_counts(item, allow_missing)
-            if keep_words:
+            if keep_unknown:
                 unknown_rows.append(tuple(dict.fromkeys(unknown)))
-                word_rows.append(frozenset(unknown).union(terms[j] for j in acc))
             indices.extend(acc.keys())
             data.extend(acc.values())
             indptr.append(len(indices))
@@ -297,8 +293,8 @@ class Encoder:
             shape=(len(items), self.n_terms),
         )
         X.sort_indices()
-        if keep_words:
-            return EncodedBatch(X, codes, tuple(unknown_rows), tuple(word_rows))
+        if keep_unknown:
+            return EncodedBatch(X, codes, tuple(unknown_rows))
         return EncodedBatch(X, codes)
 
     # ----- persistence ---------------------------------------------------------------------------------------
