@@ -195,7 +195,7 @@ def _report_import(rep: Any, as_json: bool) -> None:
         err.print(f"conflict: item {c.item_id}: stored {c.kind} {c.stored!r}, file says {c.incoming!r}; kept stored",
                   markup=False, soft_wrap=True)
     if r.rejects_path:
-        out.print(f"Rejected rows, with row numbers and reasons: {r.rejects_path}")
+        out.print(f"Rejected rows, with row numbers and reasons: {r.rejects_path}", markup=False, soft_wrap=True)
 
 
 def cmd_import(args: argparse.Namespace) -> int:
