@@ -1,0 +1,161 @@
+"""View 4, Incoming: the latest batch's decisions a page at a time, filtered by queue, held and text."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+from textual import work
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Container, Horizontal
+from textual.widgets import DataTable, Input, Label, Select
+
+from triage.tui.views.base import SCAN_CHUNK, View
+from triage.tui.views.detail import ItemDetail
+from triage.tui.widgets import (
+    num,
+)
+from triage.workspace import Workspace
+
+PAGE_ROWS = 200
+
+
+@dataclass(frozen=True)
+class Row:
+    item_id: str
+    suggested: str | None
+    confidence: float
+    held: bool
+    runner_up: str | None
+    queue: str | None
+
+
+class IncomingView(View):
+    """The latest batch's decisions, a page at a time, filtered by queue, held and text."""
+
+    main_id = "incoming-table"
+    BINDINGS = [
+        Binding("n,pagedown", "page(1)", "Next page", id="incoming.next", tooltip="The next page of decisions"),
+        Binding("p,pageup", "page(-1)", "Prev page", id="incoming.prev", tooltip="The previous page of decisions"),
+        Binding("slash", "search", "Search", id="incoming.search", tooltip="Search in the items' text",
+                key_display="/"),
+        Binding("h", "cycle_held", "Held/all", id="incoming.held", tooltip="Show all, only held, or only routed"),
+    ]
+
+    def __init__(self, ws: Workspace, **kw: Any) -> None:
+        super().__init__(ws, **kw)
+        self.rows: list[Row] = []
+        self.page = 0
+        self.batch_id: int | None = None
+
+    def compose(self) -> ComposeResult:
+        with Horizontal(id="incoming-filters"):
+            yield Select([], prompt="any queue", id="incoming-queue", compact=True)
+            yield Select([("held and routed", "all"), ("held only", "held"), ("routed only", "routed")],
+                         value="all", allow_blank=False, id="incoming-held", compact=True)
+            yield Input(placeholder="/ search text, enter applies", id="incoming-search", compact=True)
+        yield Label("", id="incoming-status")
+        with Container(classes="split"):
+            yield DataTable(id="incoming-table", cursor_type="row", zebra_stripes=True)
+            yield ItemDetail(self.ws, id="incoming-detail")
+
+    def on_mount(self) -> None:
+        t = self.query_one("#incoming-table", DataTable)
+        t.add_columns("item", "suggested", "conf.", "held", "runner-up", "routed to")
+        self.reload()
+
+    def reload(self) -> None:
+        queues = sorted(set(self.ws.model.queues) if self.ws.model else set()) or sorted(self.ws.store.queue_counts())
+        sel = self.query_one("#incoming-queue", Select)
+        value = sel.value
+        sel.set_options([(q, q) for q in queues])
+        if value in queues:
+            sel.value = value
+        self.load()
+
+    def filters(self) -> tuple[str | None, bool | None, str]:
+        q = self.query_one("#incoming-queue", Select).value
+        h = self.query_one("#incoming-held", Select).value
+        held = None if h == "all" else h == "held"
+        text = self.query_one("#incoming-search", Input).value.strip().lower()
+        return (q if isinstance(q, str) else None), held, text
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="incoming")
+    def load(self) -> None:
+        batch = self.ws.store.latest_batch()
+        if batch is None:
+            self.app.call_from_thread(self._loaded, None, [])
+            return
+        queue, held, text = self.filters()
+        rows: list[Row] = []
+        offset = 0
+        while True:
+            chunk = self.ws.store.decisions(batch_id=batch.id, held=held, limit=SCAN_CHUNK, offset=offset)
+            if not chunk:
+                break
+            offset += len(chunk)
+            keep = [d for d in chunk if queue is None or d.suggested == queue]
+            if text and keep:
+                items = {r.item_id: r for r in self.ws.store.get_items([d.item_id for d in keep])}
+                keep = [d for d in keep if any(text in str(v).lower() for v in items[d.item_id].fields.values())]
+            rows.extend(Row(d.item_id, d.suggested, d.confidence, d.held, d.runner_up, d.queue) for d in keep)
+        self.app.call_from_thread(self._loaded, batch.id, rows)
+
+    def _loaded(self, batch_id: int | None, rows: list[Row]) -> None:
+        self.batch_id = batch_id
+        self.rows = rows
+        self.page = 0
+        self.show_page()
+
+    @property
+    def pages(self) -> int:
+        return max(1, -(-len(self.rows) // PAGE_ROWS))
+
+    def show_page(self) -> None:
+        t = self.query_one("#incoming-table", DataTable)
+        t.clear()
+        start = self.page * PAGE_ROWS
+        for r in self.rows[start:start + PAGE_ROWS]:
+            t.add_row(r.item_id, r.suggested or "", num(r.confidence), "held" if r.held else "",
+                      r.runner_up or "", r.queue or "—", key=r.item_id)
+        status = self.query_one("#incoming-status", Label)
+        if self.batch_id is None:
+            status.update("nothing routed yet: `triage route FILE` routes a batch")
+        else:
+            end = min(start + PAGE_ROWS, len(self.rows))
+            status.update(f"batch #{self.batch_id}: {len(self.rows)} decisions match · rows {start + 1 if self.rows else 0}"
+                          f"–{end} · page {self.page + 1}/{self.pages} (n/p)")
+        if t.row_count:
+            t.move_cursor(row=0)
+        else:
+            self.query_one(ItemDetail).show(None)
+
+    def action_page(self, step: int) -> None:
+        new = min(max(0, self.page + step), self.pages - 1)
+        if new != self.page:
+            self.page = new
+            self.show_page()
+
+    def action_search(self) -> None:
+        self.query_one("#incoming-search", Input).focus()
+
+    def action_cycle_held(self) -> None:
+        sel = self.query_one("#incoming-held", Select)
+        order = ["all", "held", "routed"]
+        sel.value = order[(order.index(str(sel.value)) + 1) % 3]
+
+    def on_select_changed(self, event: Select.Changed) -> None:
+        event.stop()
+        if self.is_mounted:
+            self.load()
+
+    def on_input_submitted(self, event: Input.Submitted) -> None:
+        event.stop()
+        self.load()
+        self.query_one("#incoming-table", DataTable).focus()
+
+    def on_data_table_row_highlighted(self, event: DataTable.RowHighlighted) -> None:
+        event.stop()
+        if event.row_key is not None and event.row_key.value:
+            self.query_one(ItemDetail).show(str(event.row_key.value))

@@ -1,0 +1,310 @@
+"""View 3, Scorecard: the workspace's own measurement, what-if cutoffs, precision/coverage and reliability."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from rich.console import Group
+from rich.text import Text
+from textual import work
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Horizontal, Vertical, VerticalScroll
+from textual.widgets import DataTable, Static
+from textual.worker import Worker, WorkerState, get_current_worker
+
+from triage.core.metrics import Scorecard
+from triage.tui.messages import ModelChanged
+from triage.tui.views.base import BY, View, _err
+from triage.tui.widgets import (
+    ConfirmScreen,
+    confusion_table,
+    num,
+    pct,
+    reliability_chart,
+    text_plot,
+)
+from triage.workspace import Measurement, Workspace
+
+CUTOFF_STEP = 0.01
+CURVE_POINTS = 50
+
+
+def cutoff_text(c: float | None) -> str:
+    return "none" if c is None else f"{c:.2f}"
+
+
+class ScorecardView(View):
+    """The workspace's own measurement (`Workspace.evaluate`, what `triage evaluate` prints): confusion matrix,
+    per-queue figures, what-if cutoffs re-scored on the same held-out items (`Measurement.rescore`), a
+    precision/coverage plot, and saving the what-if cutoffs as a new model version."""
+
+    main_id = "queue-table"
+    BINDINGS = [
+        Binding("plus,equals_sign", "nudge(1)", "Cutoff +", id="score.up", tooltip="Raise the selected cutoff by 0.01",
+                key_display="+"),
+        Binding("minus,underscore", "nudge(-1)", "Cutoff −", id="score.down",
+                tooltip="Lower the selected cutoff by 0.01", key_display="-"),
+        Binding("w", "save_cutoffs", "Save", id="score.save",
+                tooltip="Save the what-if cutoffs as a new model version (asks first)"),
+        Binding("r", "reset", "Reset", id="score.reset", tooltip="Back to the active model's cutoffs"),
+        Binding("e", "remeasure", "Re-score", id="score.remeasure",
+                tooltip="Score the held-out items again with the current labels"),
+        Binding("c", "toggle_reliability", "Raw/calib.", id="score.reliability", show=False,
+                tooltip="Reliability chart: calibrated confidence or raw posterior (scrolls to it)"),
+    ]
+
+    def __init__(self, ws: Workspace, **kw: Any) -> None:
+        super().__init__(ws, **kw)
+        self.meas: Measurement | None = None
+        self.measured_for: int | None = None  # the active version the measurement and `saved` belong to
+        self.measuring = False  # a measurement was asked for and has not arrived
+        self.saved: dict[str, float | None] = {}  # the active policy's cutoffs, per scorecard queue
+        self.cutoffs: dict[str, float | None] = {}  # the what-if cutoffs on screen
+        self.curves: dict[str, dict[str, list[float]]] = {}
+        self.card: Scorecard | None = None
+        self.raw_reliability = False  # c: the raw posterior's reliability instead of the routing confidence's
+
+    def compose(self) -> ComposeResult:
+        yield Static(id="score-summary")
+        with VerticalScroll(id="score-scroll"):
+            yield DataTable(id="queue-table", cursor_type="row")
+            with Horizontal(id="score-lower"):
+                with Vertical(id="score-charts"):
+                    yield Static(id="score-plot")
+                    yield Static(id="score-reliability")
+                yield Static(id="score-matrix")
+
+    def on_mount(self) -> None:
+        t = self.query_one("#queue-table", DataTable)
+        t.add_columns("queue", "target", "cutoff", "prec.", "recall", "F1", "cover.", "held", "routed", "supp.")
+        self.reload()
+
+    def reload(self) -> None:
+        mv = self.ws.active_version
+        if mv is None:
+            self.meas, self.card, self.measured_for = None, None, None
+            self.show()
+            return
+        if self.meas is not None and mv.version == self.measured_for:
+            self.saved = self._active_cutoffs(self.meas)  # e.g. the cutoffs just saved: same labels, no refit
+            self.show()
+            return
+        if self.card is None and mv.scorecard:
+            self.card = Scorecard.from_dict(mv.scorecard)  # stored figures until the measurement arrives
+            self.cutoffs = {q.queue: q.cutoff for q in self.card.per_queue}
+        self.measuring = True
+        self.show()
+        self.measure()
+
+    def _active_cutoffs(self, meas: Measurement) -> dict[str, float | None]:
+        policy = self.ws.policy
+        return {q: policy.cutoff(q) if policy is not None and q in meas.model_queues else None
+                for q in meas.scorecard.queues}
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="score")
+    def measure(self) -> Measurement | None:
+        worker = get_current_worker()
+        mv = self.ws.active_version
+        if self.ws.model is None or mv is None:
+            return None
+        meas = self.ws.evaluate()
+        curves = meas.precision_coverage(CURVE_POINTS)
+        if not worker.is_cancelled:
+            self.app.call_from_thread(self._measured, meas, curves, mv.version)
+        return meas
+
+    def _measured(self, meas: Measurement, curves: dict[str, dict[str, list[float]]], version: int) -> None:
+        pending = {q: c for q, c in self.cutoffs.items() if self.meas is not None and c != self.saved.get(q)}
+        self.meas, self.curves, self.measured_for = meas, curves, version
+        self.measuring = False
+        self.saved = self._active_cutoffs(meas)
+        # unsaved what-if cutoffs survive a re-measure (a correction elsewhere), for queues the model still has
+        self.cutoffs = dict(self.saved)
+        self.cutoffs.update({q: c for q, c in pending.items() if q in meas.model_queues})
+        self.rescore()
+
+    def rescore(self) -> None:
+        """The figures at the cutoffs on screen: the measurement's own scorecard at its own cutoffs (exactly what
+        `triage evaluate` prints), else the same held-out rows re-scored."""
+        assert self.meas is not None
+        own = {q: self.meas.policy.cutoff(q) for q in self.meas.scorecard.queues}
+        self.card = self.meas.scorecard if self.cutoffs == own else self.meas.rescore(dict(self.cutoffs))
+        self.show()
+
+    def on_worker_state_changed(self, event: Worker.StateChanged) -> None:
+        if event.worker.group in ("score", "cutoffs") and event.state == WorkerState.ERROR:
+            _err(self, event.worker.error or Exception("scoring failed"))
+            self.measuring = False
+            self.show()
+
+    def action_remeasure(self) -> None:
+        self.notify("scoring the held-out items again…")
+        self.measuring = True
+        self.measure()
+        self.show()
+
+    def selected_queue(self) -> str | None:
+        t = self.query_one("#queue-table", DataTable)
+        if not t.row_count or self.card is None:
+            return None
+        return self.card.queues[min(t.cursor_row, len(self.card.queues) - 1)]
+
+    def action_nudge(self, sign: int) -> None:
+        q = self.selected_queue()
+        if q is None or self.meas is None:
+            self.notify("the held-out items are still being scored")
+            return
+        if q in self.meas.policy.never_auto:
+            self.notify(f"{q} is never auto-routed: a person reviews every item, whatever the cutoff")
+            return
+        if q not in self.meas.model_queues:
+            self.notify(f"{q} is not one of the model's queues: train to add it")
+            return
+        current = self.cutoffs.get(q)
+        start = current if current is not None else 1.0
+        self.cutoffs[q] = round(min(1.0, max(0.0, start + sign * CUTOFF_STEP)), 4)
+        self.rescore()
+
+    def action_reset(self) -> None:
+        if self.meas is not None:
+            self.cutoffs = dict(self.saved)
+            self.rescore()
+
+    @property
+    def changed(self) -> dict[str, float | None]:
+        """The what-if cutoffs that differ from the active version's."""
+        if self.meas is None:
+            return {}
+        return {q: c for q, c in self.cutoffs.items() if c != self.saved.get(q)}
+
+    def action_save_cutoffs(self) -> None:
+        if self.meas is None:
+            self.notify("the held-out items are still being scored")
+            return
+        changed = self.changed
+        if not changed:
+            self.notify("these are the active version's cutoffs: nothing to save (+ and - try others)")
+            return
+        now, after = self.meas.rescore(dict(self.saved)), self.card
+        lines = "\n".join(f"  {q}: {cutoff_text(self.saved.get(q))} -> {cutoff_text(c)}"
+                          for q, c in sorted(changed.items()))
+        figures = (f"\nOn the held-out items: coverage {pct(now.coverage)} -> {pct(after.coverage)}, auto "
+                   f"precision {pct(now.auto_precision)} -> {pct(after.auto_precision)}." if after is not None else "")
+        version = self.measured_for
+
+        def answer(yes: bool | None) -> None:
+            if yes:
+                self.save_cutoffs(changed)
+
+        self.app.push_screen(ConfirmScreen(
+            f"Save these cutoffs as a new model version?\n{lines}{figures}\nNew items are routed with them; "
+            f"activating version {version} again undoes it."), answer)
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="cutoffs")
+    def save_cutoffs(self, changed: dict[str, float | None]) -> int:
+        mv = self.ws.set_cutoffs(changed, by=BY)
+        self.app.call_from_thread(self._saved, mv.version, changed)
+        return mv.version
+
+    def _saved(self, version: int, changed: dict[str, float | None]) -> None:
+        self.measured_for = version  # same labels and counts: the measurement still holds
+        self.saved.update(changed)
+        self.show()
+        self.notify(f"cutoffs saved: version {version} is active")
+        self.post_message(ModelChanged(version, "cutoffs saved"))
+
+    def show(self) -> None:
+        card = self.card
+        summary = self.query_one("#score-summary", Static)
+        if card is None:
+            summary.update("no scorecard yet: train a model (2, then t)")
+            return
+        s = Text()
+        s.append(f"held-out items {card.n}   accuracy {pct(card.accuracy)}   coverage {pct(card.coverage)}   "
+                 f"auto precision {pct(card.auto_precision)}   macro F1 {num(card.macro_f1)}", style="bold")
+        if self.meas is None:
+            s.append("   (stored figures; scoring each item…)", style="dim")
+        else:
+            if self.changed:
+                s.append(f"\nwhat-if cutoffs ({len(self.changed)} changed): not saved · w saves · r resets",
+                         style="bold yellow")
+            elif self.measuring:
+                s.append("   (scoring again…)", style="dim")
+            own = [q for q in card.queues if self.saved.get(q) != self.meas.policy.cutoff(q)]
+            if own and not self.changed:
+                s.append(f"\nat the active version's cutoffs (`triage evaluate` solves its own on these labels: "
+                         f"they differ for {', '.join(own)})", style="dim")
+        summary.update(s)
+        t = self.query_one("#queue-table", DataTable)
+        row = t.cursor_row
+        t.clear()
+        for qs in card.per_queue:
+            if qs.never_auto:
+                cut: str | Text = "never auto"
+            else:
+                c = self.cutoffs.get(qs.queue, qs.cutoff)
+                moved = self.meas is not None and c != self.saved.get(qs.queue)
+                cut = Text(num(c) + ("*" if moved else ""), style="bold yellow" if moved else "")
+            t.add_row(qs.queue, num(qs.target), cut, pct(qs.precision), pct(qs.recall), num(qs.f1), pct(qs.coverage),
+                      pct(qs.held_share), str(qs.routed), str(qs.support), key=qs.queue)
+        if t.row_count:
+            t.move_cursor(row=min(max(row, 0), t.row_count - 1))
+        self.query_one("#score-matrix", Static).update(confusion_table(card.queues, card.matrix, card.row_shares()))
+        self.show_plot()
+        self.show_reliability()
+
+    def reliability_figures(self) -> tuple[dict[str, Any], str] | None:
+        """The measurement's calibration figures on items calibration never saw, and which items: the newest
+        items of a time split (`holdout`), else the out-of-fold decisions of a k-fold split."""
+        if self.meas is None:
+            return None
+        cal = self.meas.calibration
+        if isinstance(cal.get("holdout"), dict):
+            return cal["holdout"], "the newest, held out"
+        return cal, "out-of-fold decisions"
+
+    def show_reliability(self) -> None:
+        box = self.query_one("#score-reliability", Static)
+        got = self.reliability_figures()
+        if got is None:
+            box.update(Text("reliability: waiting for the held-out scores", style="dim"))
+            return
+        figs, where = got
+        bins = figs.get("reliability_before" if self.raw_reliability else "reliability") or []
+        n = sum(int(b["n"]) for b in bins)
+        what, other = ("raw posterior", "calibrated") if self.raw_reliability else ("routing confidence", "raw")
+        title = Text(f"reliability of the {what}", style="bold")
+        sub = Text(f"{n} items, {where} · c: {other}", style="dim")
+        ece = Text("ECE before ")
+        ece.append(num(figs.get("ece_before"), 3), style="bold")
+        ece.append(" → after ")
+        ece.append(num(figs.get("ece_after"), 3), style="bold")
+        if figs.get("ece_temperature") is not None:
+            ece.append(f" · temperature only {num(figs['ece_temperature'], 3)}", style="dim")
+        box.update(Group(title, sub, ece, reliability_chart(bins, width=16)))
+
+    def action_toggle_reliability(self) -> None:
+        """Switch the chart between the calibrated and the raw confidences, and bring it into view (below the
+        queue table it is out of sight on a small terminal)."""
+        self.raw_reliability = not self.raw_reliability
+        self.show_reliability()
+        box = self.query_one("#score-reliability", Static)
+        self.call_after_refresh(box.scroll_visible, animate=False)
+
+    def show_plot(self) -> None:
+        q = self.selected_queue()
+        plot = self.query_one("#score-plot", Static)
+        if q is None or self.meas is None or self.card is None:
+            plot.update(Text("precision vs coverage: waiting for the held-out scores", style="dim"))
+            return
+        curve = self.curves.get(q, {"precision": [], "coverage": []})
+        qs = next((s for s in self.card.per_queue if s.queue == q), None)
+        mark = (qs.coverage, qs.precision) if qs is not None and qs.routed else None
+        n = qs.routed + qs.held if qs is not None else 0
+        title = Text(f"{q}: precision vs coverage over its {n} suggested items\n", style="bold")
+        plot.update(Group(title, text_plot(curve["coverage"], curve["precision"], mark, width=36, height=7)))
+
+    def on_data_table_row_highlighted(self, event: DataTable.RowHighlighted) -> None:
+        if event.data_table.id == "queue-table":
+            self.show_plot()
