@@ -202,9 +202,13 @@ def test_scorecard_equals_sklearn(items: list[tuple[str, str, float]], cut: dict
     assert card.matrix == confusion_matrix(y_true, suggested, labels=QUEUES).tolist()
     p, r, f, support = precision_recall_fscore_support(y_true, suggested, labels=QUEUES, zero_division=0)
     assert card.accuracy == pytest.approx(accuracy_score(y_true, suggested))
+    # Reference: sklearn's macro F1 over the queues that have test items (labels=); a queue with none is
+    # reported apart in `untested`, not averaged in as F1 = 0.
+    tested = [q for q in QUEUES if q in y_true]
     assert card.macro_f1 == pytest.approx(
-        f1_score(y_true, suggested, labels=QUEUES, average="macro", zero_division=0)
+        f1_score(y_true, suggested, labels=tested, average="macro", zero_division=0)
     )
+    assert card.untested == [q for q in QUEUES if q not in y_true]
     assert card.n == len(items)
 
     # The routing rule, restated item by item.
@@ -398,3 +402,17 @@ def test_cmi_equals_weighted_mutual_information(q: int, a: int, b: int, seed: in
         if counts[k].sum() > 0
     )
     assert conditional_mutual_information(counts) == pytest.approx(expected, abs=1e-12)
+
+
+def test_a_queue_without_test_items_is_left_out_of_macro_f1() -> None:
+    # one queue ("refunds") is only suggested, never true: before, it counted as F1 = 0 in the average
+    y_true = ["billing", "billing", "network", "network"]
+    suggested = ["billing", "refunds", "network", "network"]
+    queues = ["billing", "network", "refunds"]
+    card = scorecard(y_true, suggested, np.ones(4), queues, {})
+    assert card.untested == ["refunds"]
+    # Reference: sklearn.metrics.f1_score with labels= the tested queues (billing 2/3, network 1.0)
+    assert card.macro_f1 == pytest.approx(
+        f1_score(y_true, suggested, labels=["billing", "network"], average="macro", zero_division=0))
+    assert card.macro_f1 == pytest.approx((2 / 3 + 1.0) / 2)
+    assert Scorecard.from_dict(card.to_dict()).untested == ["refunds"]

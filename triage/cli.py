@@ -92,10 +92,14 @@ def render_scorecard(card: dict[str, Any], console: Console = out) -> None:
     for q in card["per_queue"]:
         cutoff = "person" if q["never_auto"] else ("none" if q["cutoff"] is None else f"{q['cutoff']:.3f}")
         t.add_row(q["queue"], _pct(q["target"]), cutoff, _pct(q["precision"]) if q["routed"] else "-",
-                  _pct(q["recall"]), f"{q['f1']:.3f}", str(q["support"]), _pct(q["coverage"]), _pct(q["held_share"]))
+                  _pct(q["recall"]) if q["support"] else "-", f"{q['f1']:.3f}" if q["support"] else "-", str(q["support"]), _pct(q["coverage"]), _pct(q["held_share"]))
     console.print(t)
     console.print("cutoff: person = never auto-routed, a person sees every item; none = no cutoff meets the target "
                   "yet, so nothing is auto-routed there")
+    untested = card.get("untested") or []
+    if untested:
+        console.print(f"No test items for {', '.join(untested)}: left out of macro-F1 (its F1 cannot be measured "
+                      "on these items).", markup=False)
     console.print(
         f"items {card['n']}  accuracy (top queue) {_pct(card['accuracy'])}  macro-F1 {card['macro_f1']:.3f}  "
         f"auto-routed {_pct(card['coverage'])} at precision {_pct(card['auto_precision'])}  "
@@ -202,6 +206,11 @@ def cmd_import(args: argparse.Namespace) -> int:
     with _ws(args) as ws:
         rep = ws.import_file(args.file, progress=not args.json)
         _report_import(rep, args.json)
+    if not rep.result.records:
+        # every row was rejected: a script must not carry on as if the file had been imported
+        err.print(f"triage import: error: {rep.result.path}: nothing imported, all {rep.result.rows_read} rows "
+                  "rejected", markup=False, soft_wrap=True)
+        return 2
     return 0
 
 
@@ -263,8 +272,7 @@ def cmd_evaluate(args: argparse.Namespace) -> int:
             out.print(f"Stratified {sp['folds']}-fold: every one of the {sp['test_items']} labelled items decided by "
                       "a model, calibration and cutoffs fitted without it (cutoff column: median over folds).")
         else:
-            out.print(f"Trained on the {sp['train_items']} oldest items, scored on the {sp['test_items']} newest "
-                      f"({sp['test_from']} to {sp['test_to']}).")
+            out.print(_split_line(sp))
         render_scorecard(card)
         if meas.at_active is not None:
             a = meas.at_active
@@ -275,6 +283,18 @@ def cmd_evaluate(args: argparse.Namespace) -> int:
         render_calibration(meas.calibration)
         out.print(SAFETY_NOTE)
     return 0
+
+
+def _split_line(sp: dict[str, Any]) -> str:
+    """How the scorecard's items were chosen, in words; never "None to None" when times are missing."""
+    kind = sp.get("kind")
+    if kind == "random":
+        return (f"No arrival times: trained on a random {sp['train_items']} items, scored on the other "
+                f"{sp['test_items']} (stratified by queue, seed {sp.get('seed', 0)}).")
+    base = f"Trained on the {sp['train_items']} oldest items, scored on the {sp['test_items']} newest"
+    if sp.get("test_from") and sp.get("test_to"):
+        return f"{base} ({sp['test_from']} to {sp['test_to']})."
+    return f"{base} (by id order: these items have no arrival times)."
 
 
 def render_calibration(c: dict[str, Any], console: Console = out) -> None:
@@ -586,13 +606,26 @@ def cmd_serve(args: argparse.Namespace) -> int:
 
 
 # ----- parser ------------------------------------------------------------------------------------------------
-def build_parser() -> argparse.ArgumentParser:
+def _common_options(suppress: bool) -> argparse.ArgumentParser:
+    """The options every command takes, written once. The copy given to the subcommands leaves an option
+    it did not see unset (SUPPRESS), so `triage -w OTHER cutoff ...` keeps OTHER: with real defaults there,
+    argparse would overwrite a value given before the subcommand with the subcommand's default."""
+    def default(value: Any) -> Any:
+        return argparse.SUPPRESS if suppress else value
+
     common = argparse.ArgumentParser(add_help=False)
-    common.add_argument("-w", "--workspace", default=".", help="workspace folder (default: the current folder)")
-    common.add_argument("--json", action="store_true", help="print JSON instead of tables")
-    common.add_argument("--debug", action="store_true", help="show a traceback on errors")
+    common.add_argument("-w", "--workspace", default=default("."),
+                        help="workspace folder (default: the current folder)")
+    common.add_argument("--json", action="store_true", default=default(False), help="print JSON instead of tables")
+    common.add_argument("--debug", action="store_true", default=default(False), help="show a traceback on errors")
+    return common
+
+
+def build_parser() -> argparse.ArgumentParser:
+    common = _common_options(suppress=True)
     p = argparse.ArgumentParser(prog="triage", description="Route tickets and leads into queues, explain every "
-                                "decision, measure honestly, learn from corrections.", parents=[common])
+                                "decision, measure honestly, learn from corrections.",
+                                parents=[_common_options(suppress=False)])
     p.add_argument("--version", action="version", version=f"triage {__version__}")
     sub = p.add_subparsers(dest="command", metavar="COMMAND")
 

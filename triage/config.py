@@ -6,7 +6,9 @@ what role every other field plays, how the model is built and how each queue is 
 
 from __future__ import annotations
 
+import difflib
 import tomllib
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -19,6 +21,18 @@ DEFAULT_TARGET_PRECISION = 0.95
 
 class ConfigError(ValueError):
     """The config file is missing, unreadable or inconsistent; the message names the file and key."""
+
+
+# The keys each table may hold. A key or table not listed is an error, never skipped: a misspelt
+# `never_auto` silently switched off a queue's safety rule. [model] takes the ModelSettings fields, and
+# [labels] maps any queue name to another, so neither is listed here.
+TOP_TABLES = ("data", "fields", "model", "routing", "queues", "labels")
+DATA_KEYS = ("id", "label", "time", "max_text_chars")
+FIELD_KEYS = ("role", "weight", "bins", "thousands")
+ROUTING_KEYS = ("target_precision", "watch_probability")
+QUEUE_KEYS = ("target_precision", "never_auto", "cutoff", "watch_words")
+# thousands separators a number field may declare; with "." the decimal mark is "," (1.200,50)
+THOUSANDS = (",", ".", " ", "_", "'")
 
 
 @dataclass
@@ -63,12 +77,19 @@ class Config:
     max_text_chars: int = 20_000
     # hold any item that gives a never-auto queue at least this probability, whatever its top queue
     watch_probability: float = 0.10
+    # [labels]: queue names in the data mapped to the queue they mean ("NETWORK" -> "network")
+    labels: dict[str, str] = field(default_factory=dict)
 
     def never_auto(self) -> frozenset[str]:
         return frozenset(q for q, p in self.queues.items() if p.never_auto)
 
     def watch_words(self) -> dict[str, tuple[str, ...]]:
         return {q: p.watch_words for q, p in self.queues.items() if p.watch_words}
+
+    def unwatched_never_auto(self) -> list[str]:
+        """Never-auto queues without watch words: only the model guards them, and a hazard buried in an
+        item about something else is what a text model misses."""
+        return sorted(q for q, p in self.queues.items() if p.never_auto and not p.watch_words)
 
     def policy(self, queue: str) -> QueuePolicy:
         """The queue's routing rules; queues not named in the file get the defaults."""
@@ -97,11 +118,81 @@ def _flag(path: Path | str, key: str, value: Any) -> bool:
     return value
 
 
-def config_from_dict(data: dict[str, Any], path: Path | str = "triage.toml") -> Config:
-    """Build a Config from parsed TOML, with errors that name the file and the key."""
+def _key_line(text: str | None, table: Sequence[str], key: str | None) -> int | None:
+    """The 1-based line of `key` inside `[table]` (or of the table's header when `key` is None), so an error
+    can point at it; None when the text is not known or the key is written in a way this scan does not follow
+    (inline tables, dotted keys). tomllib parses but keeps no positions, hence this small scan."""
+    if text is None:
+        return None
+    current: list[str] = []
+    for n, line in enumerate(text.splitlines(), start=1):
+        parts = _header_parts(line)
+        if parts is not None:
+            current = parts
+            if key is None and parts[: len(table)] == list(table):
+                return n
+            continue
+        if key is None or current != list(table):
+            continue
+        stripped = line.strip()
+        if stripped.startswith("#") or "=" not in stripped:
+            continue
+        name = stripped.split("=", 1)[0].strip()
+        if name.strip('"').strip("'") == key:
+            return n
+    return None
+
+
+def _check_keys(path: Path | str, text: str | None, table: Sequence[str], got: dict[str, Any],
+                known: Sequence[str]) -> None:
+    """Refuse a key the table does not know, naming its line and the closest known key."""
+    for key in got:
+        if key in known:
+            continue
+        hint = difflib.get_close_matches(key.replace("-", "_").lower(), known, n=1, cutoff=0.6)
+        line = _key_line(text, table, key)
+        where = f"line {line}: " if line else ""
+        name = ".".join(table)
+        suggestion = f"did you mean {hint[0]!r}? " if hint else ""
+        what = f"unknown section [{key}]" if not table else f"[{name}] unknown key {key!r}"
+        raise ConfigError(f"{path}: {where}{what}; {suggestion}known: {', '.join(known)}")
+
+
+def _check_top(path: Path | str, text: str | None, data: dict[str, Any]) -> None:
+    for key in data:
+        if key in TOP_TABLES:
+            continue
+        hint = difflib.get_close_matches(key.lower(), TOP_TABLES, n=1, cutoff=0.6)
+        line = _key_line(text, [key], None)
+        where = f"line {line}: " if line else ""
+        suggestion = f"did you mean [{hint[0]}]? " if hint else ""
+        raise ConfigError(f"{path}: {where}unknown section [{key}]; {suggestion}known sections: "
+                          f"{', '.join(TOP_TABLES)}")
+
+
+def _labels_map(path: Path | str, raw: Any) -> dict[str, str]:
+    """[labels]: "name in the data" = "queue it means"; a target must not itself be mapped (no chains)."""
+    if not isinstance(raw, dict):
+        raise _fail(path, "labels", "must be a table of \"name in the data\" = \"queue\"")
+    out: dict[str, str] = {}
+    for k, v in raw.items():
+        if not isinstance(v, str) or not v.strip():
+            raise _fail(path, f"labels.{k}", f"must name a queue, not {v!r}")
+        out[k.strip()] = v.strip()
+    chained = sorted(v for v in out.values() if v in out and out[v] != v)
+    if chained:
+        raise _fail(path, "labels", f"{chained[0]!r} is both a target and mapped again; map straight to the queue")
+    return out
+
+
+def config_from_dict(data: dict[str, Any], path: Path | str = "triage.toml", text: str | None = None) -> Config:
+    """Build a Config from parsed TOML, with errors that name the file and the key (and its line when the
+    TOML `text` is given). Unknown keys and sections are errors, with the closest known name."""
+    _check_top(path, text, data)
     dat = data.get("data")
     if not isinstance(dat, dict):
         raise _fail(path, "data", "section is missing; it must name the id and label columns")
+    _check_keys(path, text, ["data"], dat, DATA_KEYS)
     for key in ("id", "label"):
         if not isinstance(dat.get(key), str) or not dat[key]:
             raise _fail(path, f"data.{key}", "must name a column")
@@ -112,6 +203,7 @@ def config_from_dict(data: dict[str, Any], path: Path | str = "triage.toml") -> 
     for name, spec in fields_raw.items():
         if not isinstance(spec, dict):
             raise _fail(path, f"fields.{name}", "must be a table with a role")
+        _check_keys(path, text, ["fields", name], spec, FIELD_KEYS)
         role_name = spec.get("role")
         try:
             role = FieldRole(role_name)
@@ -127,14 +219,21 @@ def config_from_dict(data: dict[str, Any], path: Path | str = "triage.toml") -> 
             raise _fail(path, f"fields.{name}", "weight must be a number and bins an integer") from None
         if weight <= 0 or bins < 1:
             raise _fail(path, f"fields.{name}", "weight must be > 0 and bins >= 1")
-        specs.append(FieldSpec(name=name, role=role, weight=weight, bins=bins))
+        thousands = spec.get("thousands")
+        if thousands is not None:
+            if role is not FieldRole.NUMBER:
+                raise _fail(path, f"fields.{name}.thousands", "is for number fields only")
+            if thousands not in THOUSANDS:
+                raise _fail(path, f"fields.{name}.thousands",
+                            f"is {thousands!r}; use one of {', '.join(repr(t) for t in THOUSANDS)}")
+        specs.append(FieldSpec(name=name, role=role, weight=weight, bins=bins, thousands=thousands))
     schema = Schema(fields=tuple(specs), id=dat["id"], label=dat["label"], time=dat.get("time"))
 
     m = data.get("model", {})
-    model = ModelSettings(**{k: v for k, v in m.items() if k in ModelSettings.__dataclass_fields__})
-    unknown = set(m) - set(ModelSettings.__dataclass_fields__)
-    if unknown:
-        raise _fail(path, "model", f"unknown keys: {', '.join(sorted(unknown))}")
+    if not isinstance(m, dict):
+        raise _fail(path, "model", "must be a table")
+    _check_keys(path, text, ["model"], m, tuple(ModelSettings.__dataclass_fields__))
+    model = ModelSettings(**m)
     if model.text_model not in (*TEXT_MODELS, "auto"):
         raise _fail(path, "model.text_model", f"is {model.text_model!r}; use auto or one of {', '.join(TEXT_MODELS)}")
     # routing needs every queue's score finite, so smoothing must be > 0 here (the model core itself allows 0)
@@ -154,16 +253,23 @@ def config_from_dict(data: dict[str, Any], path: Path | str = "triage.toml") -> 
             raise _fail(path, f"model.{key}", "must be true or false")
 
     routing = data.get("routing", {})
+    if not isinstance(routing, dict):
+        raise _fail(path, "routing", "must be a table")
+    _check_keys(path, text, ["routing"], routing, ROUTING_KEYS)
     target = _number(path, "routing.target_precision", routing.get("target_precision", DEFAULT_TARGET_PRECISION),
                      lo=0, hi=1, lo_open=True)
     watch = _number(path, "routing.watch_probability", routing.get("watch_probability", 0.10), lo=0, hi=1,
                     lo_open=True)
     queues: dict[str, QueuePolicy] = {}
-    for qname, q in data.get("queues", {}).items():
+    queues_raw = data.get("queues", {})
+    if not isinstance(queues_raw, dict):
+        raise _fail(path, "queues", "must hold one table per queue, [queues.NAME]")
+    for qname, q in queues_raw.items():
         if not qname.strip():
             raise _fail(path, "queues", "a queue name is empty")
         if not isinstance(q, dict):
             raise _fail(path, f"queues.{qname}", "must be a table")
+        _check_keys(path, text, ["queues", qname], q, QUEUE_KEYS)
         key = f"queues.{qname}"
         cutoff = q.get("cutoff")
         words = q.get("watch_words", [])
@@ -186,6 +292,7 @@ def config_from_dict(data: dict[str, Any], path: Path | str = "triage.toml") -> 
         target_precision=target,
         max_text_chars=max_text,
         watch_probability=watch,
+        labels=_labels_map(path, data.get("labels", {})),
     )
 
 
@@ -194,10 +301,11 @@ def load_config(path: Path) -> Config:
     if not path.exists():
         raise ConfigError(f"{path}: no config here; run `triage init --from FILE` or `triage demo` first")
     try:
-        data = tomllib.loads(path.read_text(encoding="utf-8"))
+        text = path.read_text(encoding="utf-8")
+        data = tomllib.loads(text)
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
         raise ConfigError(f"{path}: not valid TOML: {exc}") from None
-    return config_from_dict(data, path)
+    return config_from_dict(data, path, text)
 
 
 def _toml_value(v: Any) -> str:
@@ -231,6 +339,8 @@ def dump_config(cfg: Config, comments: dict[str, str] | None = None) -> str:
             out.append(f"weight = {f.weight!r}")
         if f.role is FieldRole.NUMBER:
             out.append(f"bins = {f.bins}")
+            if f.thousands:
+                out.append(f"thousands = {_toml_value(f.thousands)}")
         out.append("")
     out.append("[model]")
     for k in ModelSettings.__dataclass_fields__:
@@ -246,6 +356,10 @@ def dump_config(cfg: Config, comments: dict[str, str] | None = None) -> str:
             out.append(f"cutoff = {q.cutoff!r}")
         if q.watch_words:
             out.append("watch_words = [" + ", ".join(_toml_value(w) for w in q.watch_words) + "]")
+        out.append("")
+    if cfg.labels:
+        out.append("[labels]")
+        out += [f"{_toml_key(k)} = {_toml_value(v)}" for k, v in cfg.labels.items()]
         out.append("")
     return "\n".join(out)
 
@@ -298,7 +412,7 @@ def write_config_atomically(path: Path, text: str) -> None:
     import os
     import tempfile
 
-    config_from_dict(tomllib.loads(text), path)  # refuse to write what would not load
+    config_from_dict(tomllib.loads(text), path, text)  # refuse to write what would not load
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent)
     try:
         if path.exists():

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Collection, Mapping, Sequence
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, field
 from typing import Any
 
 import numpy as np
@@ -221,6 +221,10 @@ class Scorecard:
     ``matrix`` rows are true queues and columns suggested queues, in the order of ``queues`` (the layout
     of sklearn.metrics.confusion_matrix). ``accuracy`` and ``macro_f1`` are top-1, without cutoffs;
     ``coverage``, ``held_share`` and ``auto_precision`` describe what the cutoffs do over all items.
+    ``untested`` lists the queues with no test items: their recall and F1 cannot be measured, so they are
+    left out of ``macro_f1`` (a queue first seen after training would otherwise count as F1 = 0 and pull
+    the average down for no fault of the model). Equal to sklearn's f1_score(average="macro",
+    labels=<the tested queues>).
     """
 
     queues: list[str]
@@ -232,6 +236,7 @@ class Scorecard:
     held_share: float
     auto_precision: float
     macro_f1: float
+    untested: list[str] = field(default_factory=list)
 
     def to_dict(self) -> dict[str, Any]:
         """Plain Python types only, so json.dumps takes it as it is."""
@@ -245,6 +250,7 @@ class Scorecard:
             "held_share": float(self.held_share),
             "auto_precision": float(self.auto_precision),
             "macro_f1": float(self.macro_f1),
+            "untested": list(self.untested),
         }
 
     @classmethod
@@ -260,6 +266,7 @@ class Scorecard:
             held_share=float(d["held_share"]),
             auto_precision=float(d["auto_precision"]),
             macro_f1=float(d["macro_f1"]),
+            untested=[str(q) for q in d.get("untested", [])],
         )
 
     def row_shares(self) -> list[list[float]]:
@@ -354,6 +361,7 @@ def scorecard(
         for i, q in enumerate(queue_list)
     ]
     n_auto = int(auto.sum())
+    tested = support > 0
     return Scorecard(
         queues=queue_list,
         matrix=matrix.tolist(),
@@ -363,7 +371,8 @@ def scorecard(
         coverage=n_auto / n if n else 0.0,
         held_share=(n - n_auto) / n if n else 0.0,
         auto_precision=float(right[auto].mean()) if n_auto else 0.0,
-        macro_f1=float(f_all.mean()) if nq else 0.0,
+        macro_f1=float(f_all[tested].mean()) if tested.any() else 0.0,
+        untested=[q for i, q in enumerate(queue_list) if not tested[i]],
     )
 
 

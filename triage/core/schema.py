@@ -18,12 +18,14 @@ class FieldRole(StrEnum):
 
 @dataclass(frozen=True)
 class FieldSpec:
-    """One predictor field. `weight` scales a text field's token counts; `bins` is for number fields."""
+    """One predictor field. `weight` scales a text field's token counts; `bins` is for number fields;
+    `thousands` is a number field's thousands separator ("1,200"), read only when the file is imported."""
 
     name: str
     role: FieldRole
     weight: float = 1.0
     bins: int = 5
+    thousands: str | None = None
 
 
 @dataclass(frozen=True)
