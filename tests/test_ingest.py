@@ -244,11 +244,15 @@ def test_missing_field_column_is_an_error_for_training_and_a_warning_for_routing
     ]
 
 
-def test_ragged_csv_names_the_line(tmp_path: Path) -> None:
+def test_ragged_csv_rows_are_rejected_and_the_rest_imported(tmp_path: Path) -> None:
     p = tmp_path / "ragged.csv"
-    p.write_text("ticket_id,subject,body,channel,tenure_days,queue\nT1,a,b,c,1,q\nT2,a,b,c,1,q,extra\n")
-    with pytest.raises(IngestError, match=r"ragged\.csv: cannot be read as CSV.*line 3"):
-        read_items(p, SCHEMA)
+    p.write_text("ticket_id,subject,body,channel,tenure_days,queue\nT1,a,b,c,1,q\nT2,a,b,c,1,q,extra\n"
+                 "T3,a,b\nT4,a,b,c,1,q\n")
+    res = read_items(p, SCHEMA)
+    assert [r.item_id for r in res.records] == ["T1", "T4"]
+    assert [(r.row, r.reason) for r in res.rejects] == [(2, "expected 6 fields, found 7"),
+                                                      (3, "expected 6 fields, found 3")]
+    assert "ragged.csv: row 2: expected 6 fields, found 7" in res.warnings
 
 
 def test_broken_parquet(tmp_path: Path) -> None:
@@ -282,7 +286,8 @@ def test_bad_rows_are_rejected_and_good_rows_kept(tmp_path: Path) -> None:
         (3, "ticket_id", "the id is empty"),
         (4, "queue", "the label (queue) is empty"),
         (5, "ticket_id", "duplicate of row 1"),
-        (6, "tenure_days", "'1,234' is not a number"),
+        (6, "tenure_days", "'1,234' is not a number (set thousands = \",\" for this field in triage.toml to "
+                           "read 1,200 as 1200)"),
         (7, "tenure_days", "'inf' is not a finite number"),
     ]
     assert "tickets.csv: row 2, field 'tenure_days': 'abc' is not a number" in res.warnings
@@ -374,14 +379,14 @@ def test_overlong_text_is_truncated_with_a_warning(tmp_path: Path) -> None:
 
 def test_many_row_warnings_are_summarised(tmp_path: Path) -> None:
     rows = [dict(ROWS[0], ticket_id=f"T{i}", body="y" * 50) for i in range(30)]
-    rows += [dict(ROWS[0], ticket_id=f"T{i}", tenure_days="n/a") for i in range(30, 55)]
+    rows += [dict(ROWS[0], ticket_id=f"T{i}", tenure_days="unknown") for i in range(30, 55)]
     res = read_items(write_csv(tmp_path / "many.csv", rows), SCHEMA, max_text_chars=20)
     assert len(res.records) == 30 and len(res.rejects) == 25
     assert res.warnings[:2] == [
         "many.csv: row 1, field 'body': text of 50 characters cut to 20",
         "many.csv: row 2, field 'body': text of 50 characters cut to 20",
     ]
-    assert res.warnings[20] == "many.csv: row 31, field 'tenure_days': 'n/a' is not a number"
+    assert res.warnings[20] == "many.csv: row 31, field 'tenure_days': 'unknown' is not a number"
     assert res.warnings[-3:] == [
         "many.csv: 25 of 55 rows rejected; see " + str(tmp_path / "many.rejects.csv"),
         "many.csv: 10 more cells of over-long text, not listed",

@@ -349,9 +349,19 @@ def dump_config(cfg: Config, comments: dict[str, str] | None = None) -> str:
             "# items giving a never-auto queue at least this probability are held for a person",
             f"watch_probability = {cfg.watch_probability!r}", ""]
     for qname, q in cfg.queues.items():
+        if f"queues.{qname}" in comments:
+            out.append(f"# {comments[f'queues.{qname}']}")
         out.append(f"[queues.{_toml_key(qname)}]")
         out.append(f"target_precision = {q.target_precision!r}")
         out.append(f"never_auto = {_toml_value(q.never_auto)}")
+        note = comments.get(f"queues.{qname}.watch_words")
+        if note and not q.watch_words:
+            # proposals stay commented out: a person reviews them before they hold items
+            out.append(f"# {note}")
+            proposal = note.split("] ", 1)[0].removeprefix("suggested ") + "]" if note.startswith(
+                "suggested watch_words = [") else None
+            if proposal:
+                out.append(f"# {proposal}")
         if q.cutoff is not None:
             out.append(f"cutoff = {q.cutoff!r}")
         if q.watch_words:

@@ -9,6 +9,7 @@ from __future__ import annotations
 import math
 import re
 import warnings
+from collections import Counter
 from pathlib import Path
 from typing import Any
 
@@ -24,10 +25,18 @@ TIME_WORDS = ("received", "created", "date", "time", "timestamp", "arrived", "op
 SAFETY_WORDS = ("safety", "security", "hazard", "incident", "urgent", "emergency", "self_harm", "selfharm")
 SAFETY_PRECISION = 0.99
 
+# watch-word proposals for never-auto queues: how many, and how few items of the queue must carry one
+MAX_WATCH_WORDS = 8
+MIN_WATCH_ITEMS = 3
+WATCH_PREFIX = 4  # "smok" covers smoke / smoking / smoky, "burn" burning / burnt
+
 SHORT_TEXT_WEIGHT = 2.0  # subjects and titles: few words, each says a lot
 LONG_TEXT_CHARS = 60
 TEXT_MIN_MEAN_CHARS = 25
 MAX_CATEGORIES = 100
+# a column not named like a time is the arrival time when this share of it parses as dates; the rest are
+# read as missing times on import (counted), not as text
+TIME_MIN_SHARE = 0.8
 
 
 def _words(name: str) -> list[str]:
@@ -83,6 +92,48 @@ def _looks_like_id_name(name: str) -> bool:
     low = name.strip().lower()
     words = _words(name)
     return low in ID_NAMES or low.endswith("id") or (bool(words) and words[-1] in ID_NAMES)
+
+
+def _word_starts(text: str) -> set[str]:
+    """The word starts of one text: the first WATCH_PREFIX letters of each word of 3 letters or more."""
+    return {w[:WATCH_PREFIX] for w in re.findall(r"[^\W\d_]{3,}", text.casefold())}
+
+
+def propose_watch_words(texts: list[str], labels: list[str], queue: str) -> list[tuple[str, int, int]]:
+    """Word starts most typical of `queue` against the other queues, as (start, items of the queue with it,
+    other items with it), best first.
+
+    Each start is scored by the log odds ratio of appearing in the queue's items rather than in the others'
+    (0.5 added to every cell). Only starts whose ratio is clearly above zero count: its z-score (the ratio over
+    its standard error, as in Monroe, Colaresi & Quinn 2008, "Fightin' words") must reach 3, and at least
+    MIN_WATCH_ITEMS of the queue's items must carry it. The survivors are ranked by the ratio itself, so a
+    word nearly only the queue uses ("burn") comes before a common one it uses a little more ("start").
+    These are suggestions for a person to review, not rules."""
+    inside: Counter[str] = Counter()
+    outside: Counter[str] = Counter()
+    n_in = n_out = 0
+    for text, lab in zip(texts, labels, strict=True):
+        starts = _word_starts(text)
+        if lab == queue:
+            n_in += 1
+            inside.update(starts)
+        else:
+            n_out += 1
+            outside.update(starts)
+    if n_in < MIN_WATCH_ITEMS or n_out == 0:
+        return []
+    scored: list[tuple[float, str]] = []
+    for w, a in inside.items():
+        b = outside.get(w, 0)
+        if a < MIN_WATCH_ITEMS or a / n_in <= b / n_out:
+            continue
+        a1, a0, b1, b0 = a + 0.5, n_in - a + 0.5, b + 0.5, n_out - b + 0.5
+        lor = math.log(a1 / a0) - math.log(b1 / b0)
+        z = lor / math.sqrt(1 / a1 + 1 / a0 + 1 / b1 + 1 / b0)
+        if z >= 3.0:  # common practice (|z| > 1.96 in that paper; 3 keeps the list short), no source
+            scored.append((lor, w))
+    scored.sort(key=lambda t: (-t[0], t[1]))
+    return [(w, inside[w], outside.get(w, 0)) for _z, w in scored[:MAX_WATCH_WORDS]]
 
 
 def _datetime_share(values: pd.Series) -> float:
@@ -160,10 +211,14 @@ def infer_config(
         time_hint = any(w in TIME_WORDS for w in _words(c)) or c.lower().endswith("_at")
         if time_col is None and (time_hint or numeric_share < 0.95):
             dt_share = _datetime_share(filled)
-            if (time_hint and dt_share >= 0.5) or (numeric_share < 0.95 and dt_share >= 0.95):
+            if (time_hint and dt_share >= 0.5) or (numeric_share < 0.95 and dt_share >= TIME_MIN_SHARE):
                 time_col = c
                 why = "the name suggests a time and " if time_hint else ""
-                reasons[c] = f"the arrival time: {why}{_pct(dt_share)} of values parse as dates"
+                failed = round((1 - dt_share) * len(filled))
+                extra = "" if failed == 0 else (
+                    f"; {failed} of {len(filled)} sampled values do not parse, their items get no arrival time "
+                    "(never scored as the newest)")
+                reasons[c] = f"the arrival time: {why}{_pct(dt_share)} of values parse as dates{extra}"
                 continue
         if numeric_share >= 0.95:
             if distinct == 1:
@@ -211,6 +266,9 @@ def infer_config(
         )
 
     queues: dict[str, QueuePolicy] = {}
+    text_cols = [f.name for f in specs if f.role is FieldRole.TEXT]
+    texts = [" ".join(frame[c].iat[i] for c in text_cols) for i in range(n)]
+    labels = list(frame[label_col])
     for q in sorted({v for v in frame[label_col] if v}):
         norm = re.sub(r"[^a-z0-9]+", "_", q.lower())
         hit = next((w for w in SAFETY_WORDS if w in norm), None)
@@ -220,6 +278,22 @@ def infer_config(
                 f"queue {q!r} sounds like {hit.replace('_', '-')}: never auto-routed, "
                 f"target precision {SAFETY_PRECISION}"
             )
+            reasons[f"queues.{q}.watch_words"] = _watch_note(q, propose_watch_words(texts, labels, q),
+                                                             labels.count(q))
 
     schema = Schema(fields=tuple(specs), id=id_col, label=label_col, time=time_col)
     return Config(schema=schema, queues=queues), reasons
+
+
+WATCH_NONE = "no watch words proposed"
+
+
+def _watch_note(queue: str, words: list[tuple[str, int, int]], n_items: int) -> str:
+    """The reason line for a never-auto queue's watch words: the proposals to review, or plainly none."""
+    if not words:
+        return (f"{WATCH_NONE}: no word start is clearly typical of the {n_items} sampled {queue!r} items; "
+                "until you add watch_words, only the model guards this queue")
+    listed = ", ".join(f'"{w}"' for w, _a, _b in words)
+    detail = "; ".join(f"{w}: {a} of its items, {b} others" for w, a, b in words)
+    return (f"suggested watch_words = [{listed}] (word starts most typical of {queue!r}: {detail}); review "
+            "them and uncomment the line in triage.toml, they are not active yet")

@@ -2,12 +2,14 @@
 
 Problems with the whole file (missing, empty, not UTF-8, no id column, ...) raise `IngestError`. Problems with
 one row (empty or duplicate id, a number field holding text, ...) reject that row only: the other rows are
-imported and the rejects are written to `<stem>.rejects.csv` so nothing is lost silently. Every message names
-the file, the row and the field, so an operator can find the cell without guessing.
+imported and the rejects are written to `<stem>.rejects.csv` (in the workspace, created afresh with mode 0600:
+they hold the same personal data as the export) so nothing is lost silently. Every message names the file, the
+row and the field, so an operator can find the cell without guessing.
 
 Row numbers are 1-based data rows: for CSV/TSV/Parquet row 1 is the first record after the header; for JSON
 lines the row is the line number (blank lines are skipped but still counted, so the number matches an editor).
-Files are read in chunks, so a file larger than memory streams through.
+A CSV record that does not start on line row + 1 (a quoted field holding a line break came before it) also
+names its line. Files are read in chunks, so a file larger than memory streams through.
 """
 
 from __future__ import annotations
@@ -18,10 +20,13 @@ import json
 import logging
 import math
 import os
-import tempfile
+import re
+import unicodedata
+import warnings
+from collections import Counter, deque
 from collections.abc import Callable, Iterable, Iterator
-from dataclasses import dataclass
-from datetime import date, datetime
+from dataclasses import dataclass, field
+from datetime import UTC, date, datetime
 from pathlib import Path
 from typing import Any
 
@@ -51,6 +56,7 @@ class Reject:
     field: str | None
     reason: str
     raw: dict
+    line: int | None = None  # CSV: the physical line the record starts on, when known
 
 
 @dataclass
@@ -63,6 +69,8 @@ class IngestResult:
     warnings: list[str]
     rows_read: int
     rejects_path: Path | None
+    # rows whose arrival time could not be read (row, value): imported without a time, counted here
+    bad_times: list[tuple[int, str]] = field(default_factory=list)
 
 
 class _BadValue(Exception):
@@ -129,21 +137,45 @@ def _as_category(v: Any, name: str) -> str | None:
     return s or None
 
 
-def _as_number(v: Any, name: str) -> float | None:
+# what exports write for "no value" in a number column; read as missing (the field's missing bin), not as text.
+# Compared case-folded. Common practice (pandas' default NA strings overlap), no single source.
+MISSING_MARKERS = frozenset({"", "n/a", "na", "nan", "-", "--", "null", "none", "#n/a"})
+
+
+def _grouped(s: str, thousands: str) -> str | None:
+    """'1,200.50' with thousands=',' -> '1200.50' (with '.', the decimal mark is ','); None when the grouping
+    is not well formed, so '1,2,3' stays an error instead of becoming 123."""
+    decimal = "," if thousands == "." else "."
+    sep, dec = re.escape(thousands), re.escape(decimal)
+    if not re.fullmatch(rf"[+-]?\d{{1,3}}({sep}\d{{3}})+({dec}\d+)?", s):
+        return None
+    return s.replace(thousands, "").replace(decimal, ".")
+
+
+def _as_number(v: Any, name: str, thousands: str | None = None) -> float | None:
     if _is_missing(v):
         return None
     if isinstance(v, bool) or isinstance(v, dict | list | tuple):
         raise _BadValue(name, f"is {_kind(v)}, expected a number")
     if isinstance(v, int | float):
+        if isinstance(v, float) and math.isnan(v):
+            return None
         x = float(v)
     else:
         s = str(v).strip()
-        if not s:
+        if s.casefold() in MISSING_MARKERS:
             return None
         try:
             x = float(s)
         except ValueError:
-            raise _BadValue(name, f"{s!r} is not a number") from None
+            plain = _grouped(s, thousands) if thousands else None
+            if plain is None:
+                hint = "" if thousands or not re.fullmatch(r"[+-]?\d{1,3}(,\d{3})+(\.\d+)?", s) else \
+                    " (set thousands = \",\" for this field in triage.toml to read 1,200 as 1200)"
+                raise _BadValue(name, f"{s!r} is not a number{hint}") from None
+            x = float(plain)
+        if math.isnan(x):
+            return None  # "NaN" is how some exports write a missing value
     if not math.isfinite(x):
         raise _BadValue(name, f"{v!r} is not a finite number")
     return x
@@ -159,23 +191,104 @@ def _as_key(v: Any, name: str, what: str) -> str | None:
     return s or None
 
 
+def _as_label(v: Any, name: str) -> str | None:
+    """A queue name; a control character (a NUL or a tab from a broken export) is refused, since such a
+    name would make a queue of its own that no person can tell from the real one."""
+    label = _as_key(v, name, "a queue name")
+    if label is not None:
+        bad = next((c for c in label if unicodedata.category(c) == "Cc"), None)
+        if bad is not None:
+            raise _BadValue(name, f"the queue name {label!r} holds a control character (U+{ord(bad):04X})")
+    return label
+
+
+class _BadTime(Exception):
+    """A time cell that is not a date and time; the row is kept without an arrival time."""
+
+
+def parse_time(s: str) -> str | None:
+    """An arrival time as ISO 8601 text, or None when it is not a date and time.
+
+    ISO text is kept as written; anything else pandas can read ("03/01/2024 09:00", "1 Mar 2024") is
+    rewritten as ISO so times sort correctly as text. Words ("yesterday", "now") are refused, not read
+    relative to today."""
+    try:
+        datetime.fromisoformat(s)
+        return s
+    except ValueError:
+        pass
+    if not any(ch.isdigit() for ch in s):
+        return None
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            ts = pd.to_datetime(s)
+    except (ValueError, TypeError, OverflowError):
+        return None
+    if ts is pd.NaT or pd.isna(ts):
+        return None
+    dt = ts.to_pydatetime()
+    if dt.tzinfo is not None:
+        dt = dt.astimezone(UTC)
+    return dt.isoformat()
+
+
 def _as_time(v: Any, name: str) -> str | None:
     if _is_missing(v):
         return None
+    if isinstance(v, datetime | date):
+        return v.isoformat()
     if isinstance(v, dict | list | tuple):
         raise _BadValue(name, f"is {_kind(v)}, expected a date and time")
     s = (v if isinstance(v, str) else _scalar_text(v)).strip()
-    return s or None
+    if not s:
+        return None
+    parsed = parse_time(s)
+    if parsed is None:
+        raise _BadTime(s)
+    return parsed
+
+
+def label_key(label: str) -> str:
+    """What two queue names share when they differ only by case, spacing or number format."""
+    try:
+        x = float(label)
+        if math.isfinite(x):
+            return repr(x)
+    except ValueError:
+        pass
+    return re.sub(r"\s+", "", label.casefold())
+
+
+def similar_labels(counts: dict[str, int]) -> list[list[tuple[str, int]]]:
+    """Groups of queue names that differ only by case, spacing or number format ('Network', 'NETWORK';
+    '1', '1.0'), each name with its count, most frequent first."""
+    groups: dict[str, list[tuple[str, int]]] = {}
+    for name, n in counts.items():
+        groups.setdefault(label_key(name), []).append((name, n))
+    return [sorted(g, key=lambda t: (-t[1], t[0])) for g in groups.values() if len(g) > 1]
+
+
+def describe_similar(source: str, group: list[tuple[str, int]]) -> str:
+    """The warning for one group of look-alike queue names, with a [labels] line that would merge them."""
+    names = ", ".join(f"{name!r} ({n})" for name, n in group)
+    keep = group[0][0]
+    example = "; ".join(f'"{name}" = "{keep}"' for name, _ in group[1:])
+    return (f"{source}: queue names that differ only by case, spacing or number format: {names}; they stay "
+            f"separate queues unless [labels] in triage.toml maps them, e.g. {example}")
 
 
 class _RowChecker:
     """Turns one raw row (a dict from any reader) into an ItemRecord, or explains why not."""
 
-    def __init__(self, schema: Schema, *, require_label: bool, max_text_chars: int) -> None:
+    def __init__(self, schema: Schema, *, require_label: bool, max_text_chars: int,
+                 labels: dict[str, str] | None = None) -> None:
         self.schema = schema
         self.require_label = require_label
         self.max_text_chars = max_text_chars
+        self.labels = labels or {}
         self.truncated: list[tuple[int, str, int]] = []  # (row, field, original length)
+        self.bad_times: list[tuple[int, str]] = []  # (row, value) of times that could not be read
 
     def check(self, raw: dict[str, Any], row: int) -> ItemRecord | Reject:
         s = self.schema
@@ -183,7 +296,9 @@ class _RowChecker:
             item_id = _as_key(raw.get(s.id), s.id, "an id")
             if item_id is None:
                 raise _BadValue(s.id, "the id is empty")
-            label = _as_key(raw.get(s.label), s.label, "a queue name")
+            label = _as_label(raw.get(s.label), s.label)
+            if label is not None:
+                label = self.labels.get(label, label)
             if label is None and self.require_label:
                 raise _BadValue(s.label, "the label (queue) is empty")
             values: dict[str, Any] = {}
@@ -197,19 +312,26 @@ class _RowChecker:
                         text = text[: self.max_text_chars]
                     values[spec.name] = text
                 elif spec.role is FieldRole.NUMBER:
-                    values[spec.name] = _as_number(v, spec.name)
+                    values[spec.name] = _as_number(v, spec.name, spec.thousands)
                 else:
                     values[spec.name] = _as_category(v, spec.name)
-            arrived = _as_time(raw.get(s.time), s.time) if s.time else None
+            bad_time: str | None = None
+            try:
+                arrived = _as_time(raw.get(s.time), s.time) if s.time else None
+            except _BadTime as t:
+                arrived, bad_time = None, str(t)
         except _BadValue as bad:
             return Reject(row=row, field=bad.field_name, reason=bad.reason, raw=dict(raw))
+        if bad_time is not None:
+            self.bad_times.append((row, bad_time))
         self.truncated.extend(cut)  # only for rows kept: a rejected row is in the rejects file whole
         return ItemRecord(item_id=item_id, fields=values, label=label, arrived_at=arrived)
 
 
 def describe_reject(source: str, r: Reject) -> str:
     """`tickets.csv: row 12, field 'tenure_days': 'abc' is not a number` - the one-line form used everywhere."""
-    where = f"row {r.row}" + (f", field {r.field!r}" if r.field else "")
+    line = f" (line {r.line})" if r.line is not None and r.line != r.row + 1 else ""
+    where = f"row {r.row}{line}" + (f", field {r.field!r}" if r.field else "")
     return f"{source}: {where}: {r.reason}"
 
 
@@ -250,6 +372,7 @@ class _Reader:
         self.columns: list[str] | None = None
         self.total = 0  # progress units: bytes, or rows for parquet
         self.done = 0
+        self.line_of: dict[int, int] = {}  # CSV rows that do not start on line row + 1
 
     def rows(self) -> Iterator[tuple[int, dict[str, Any]] | Reject]:
         if self.suffix in CSV_SUFFIXES:
@@ -262,36 +385,63 @@ class _Reader:
 
     # CSV / TSV ------------------------------------------------------------------------------------------
     def _csv(self) -> Iterator[tuple[int, dict[str, Any]] | Reject]:
+        # Parsed with the csv module in strict mode over physical lines we hand it, rather than with pandas:
+        # pandas refuses a whole file for one ragged row and lets a stray quote swallow the rows after it
+        # without a word. Here every record knows the lines it came from, so a damaged one is rejected with
+        # its line number and parsing starts again on the next line; the good rows still import.
         self.total = self.path.stat().st_size
         if self.total == 0:
             raise IngestError(f"{self.name}: the file is empty (no header, no rows)")
-        row = 0
+        sep = CSV_SUFFIXES[self.suffix]
+        kind = self.suffix[1:].upper()
         with self.path.open("rb") as fh:
+            lines = _Lines(fh, self)
+            reader = csv.reader(lines, delimiter=sep, strict=True)
             try:
-                reader = pd.read_csv(
-                    fh,
-                    sep=CSV_SUFFIXES[self.suffix],
-                    dtype=str,
-                    keep_default_na=False,
-                    chunksize=self.chunk_rows,
-                    encoding="utf-8-sig",
-                )
-                for chunk in reader:
-                    if self.columns is None:
-                        self.columns = [str(c) for c in chunk.columns]
-                    self.done = fh.tell() if not fh.closed else self.total
-                    for rec in chunk.to_dict("records"):
-                        row += 1
-                        yield row, rec
-            except UnicodeDecodeError:
-                raise _utf8_failure(self.path) from None
-            except pd.errors.EmptyDataError:
+                header = next(reader)
+                while not header:  # blank lines before the header
+                    header = next(reader)
+            except StopIteration:
                 raise IngestError(f"{self.name}: the file is empty (no header, no rows)") from None
-            except pd.errors.ParserError as exc:
-                raise IngestError(
-                    f"{self.name}: cannot be read as {self.suffix[1:].upper()} after row {row}: {exc} "
-                    "(check quoting and the delimiter)"
-                ) from None
+            except csv.Error as exc:
+                raise IngestError(f"{self.name}: line {lines.taken[0][0]}: the header cannot be read as {kind}: "
+                                  f"{exc} (check quoting and the delimiter)") from None
+            header = [h.strip() for h in header]
+            _refuse_duplicate_columns(self.name, header)
+            self.columns = header
+            width = len(header)
+            row = 0
+            while True:
+                lines.taken = []
+                try:
+                    fields = next(reader)
+                except StopIteration:
+                    break
+                except csv.Error as exc:
+                    row += 1
+                    yield lines.reject_first(row, f"the quoting is broken ({exc}){lines.span_note()}")
+                    continue
+                if not fields:
+                    continue  # a blank line
+                if len(lines.taken) > 1 and lines.swallowed(sep, width):
+                    row += 1
+                    yield lines.reject_first(
+                        row, f"a quote opened here runs over {len(lines.taken) - 1} more line(s) that look like "
+                        "rows of their own (a stray quote?); those lines are read again as rows")
+                    continue
+                row += 1
+                if len(fields) != width:
+                    if len(lines.taken) > 1:
+                        yield lines.reject_first(row, f"expected {width} fields, found {len(fields)}"
+                                                 f"{lines.span_note()}")
+                    else:
+                        yield Reject(row=row, field=None, reason=f"expected {width} fields, found {len(fields)}",
+                                     raw={"line": lines.taken[0][1].rstrip("\r\n")}, line=lines.taken[0][0])
+                    continue
+                first = lines.taken[0][0]
+                if first != row + 1:
+                    self.line_of[row] = first
+                yield row, dict(zip(header, fields, strict=True))
         self.done = self.total
 
     # JSON lines -----------------------------------------------------------------------------------------
@@ -355,6 +505,7 @@ class _Reader:
         except (pa.ArrowException, OSError) as exc:
             raise IngestError(f"{self.name}: cannot be read as Parquet: {exc}") from None
         self.columns = list(pf.schema_arrow.names)
+        _refuse_duplicate_columns(self.name, self.columns)
         self.total = pf.metadata.num_rows
         row = 0
         batches = pf.iter_batches(batch_size=self.chunk_rows)
@@ -371,12 +522,104 @@ class _Reader:
             self.done = row
 
 
+class _RepeatedKey(Exception):
+    def __init__(self, key: str) -> None:
+        super().__init__(key)
+        self.key = key
+
+
+def _no_repeated_keys(pairs: list[tuple[str, Any]]) -> dict[str, Any]:
+    """json's object hook: a key given twice is an error (json.loads would keep the last one silently)."""
+    out: dict[str, Any] = {}
+    for k, v in pairs:
+        if k in out:
+            raise _RepeatedKey(k)
+        out[k] = v
+    return out
+
+
+class _Lines:
+    """The physical lines of a CSV file, decoded one by one (so a bad byte names its line), with the lines
+    the current record took; lines can be handed back so parsing starts again after a damaged record."""
+
+    def __init__(self, fh: Any, reader: _Reader) -> None:
+        self.fh = fh
+        self.reader = reader
+        self.lineno = 0
+        self.offset = 0
+        self.back: deque[tuple[int, str]] = deque()
+        self.taken: list[tuple[int, str]] = []
+
+    def __iter__(self) -> _Lines:
+        return self
+
+    def __next__(self) -> str:
+        if self.back:
+            item = self.back.popleft()
+        else:
+            raw = self.fh.readline()
+            if not raw:
+                raise StopIteration
+            self.lineno += 1
+            try:
+                text = raw.decode("utf-8")
+            except UnicodeDecodeError as exc:
+                bad = raw[exc.start : exc.start + 1].hex()
+                raise IngestError(
+                    f"{self.reader.name}: line {self.lineno}: the file is not UTF-8 (byte 0x{bad} at byte offset "
+                    f"{self.offset + exc.start}); re-export it as UTF-8"
+                ) from None
+            if self.lineno == 1:
+                text = text.removeprefix("\ufeff")
+            self.offset += len(raw)
+            self.reader.done = self.offset
+            item = (self.lineno, text)
+        self.taken.append(item)
+        return item[1]
+
+    def reject_first(self, row: int, reason: str) -> Reject:
+        """Reject the record's first line and hand the others back to be parsed as rows of their own."""
+        (first, text), rest = self.taken[0], self.taken[1:]
+        self.back.extendleft(reversed(rest))
+        return Reject(row=row, field=None, reason=f"line {first}: {reason}", raw={"line": text.rstrip("\r\n")},
+                      line=first)
+
+    def span_note(self) -> str:
+        if len(self.taken) < 2:
+            return ""
+        return f"; a quote opened here runs to line {self.taken[-1][0]}, those lines are read again as rows"
+
+    def swallowed(self, sep: str, width: int) -> bool:
+        """True when a later line of this multi-line record has a full row's worth of delimiters and a first
+        cell: a quoted text with a line break rarely holds that many, a row swallowed by a stray quote does."""
+        for _n, text in self.taken[1:]:
+            body = text.rstrip("\r\n")
+            if body.count(sep) >= width - 1 and body.split(sep, 1)[0].strip():
+                return True
+        return False
+
+
+def _refuse_duplicate_columns(source: str, columns: list[str]) -> None:
+    """Two columns with one name: one of them would be dropped without a word, so the file is refused."""
+    seen: dict[str, list[int]] = {}
+    for i, c in enumerate(columns, start=1):
+        seen.setdefault(c, []).append(i)
+    dup = {c: pos for c, pos in seen.items() if len(pos) > 1}
+    if dup:
+        name, pos = next(iter(dup.items()))
+        raise IngestError(f"{source}: column {name!r} appears {len(pos)} times (columns "
+                          f"{', '.join(map(str, pos))}); rename or drop one, so no values are lost")
+
+
 def _parse_json_line(text: str, lineno: int) -> tuple[int, dict[str, Any]] | Reject | None:
     """One JSON line: (line, object), a Reject naming the line, or None for a blank line."""
     if not text.strip():
         return None
     try:
-        obj = json.loads(text)
+        obj = json.loads(text, object_pairs_hook=_no_repeated_keys)
+    except _RepeatedKey as rep:
+        return Reject(row=lineno, field=rep.key, reason=f"the key {rep.key!r} appears twice in this object; "
+                      "one value would be dropped", raw={"line": text.rstrip("\r\n")})
     except json.JSONDecodeError as exc:
         return Reject(
             row=lineno,
@@ -488,16 +731,19 @@ def read_items(
     chunk_rows: int = 20_000,
     progress: bool = False,
     rejects_dir: Path | None = None,
+    labels: dict[str, str] | None = None,
 ) -> IngestResult:
     """Read and validate a whole file.
 
     `require_label=True` is for training data: the label column and every configured field must exist.
     For routing (False) a missing field column is filled with missing values and a warning.
-    Rejected rows are written to `<stem>.rejects.csv` (see `write_rejects`) and counted in the result.
+    Rejected rows are written to `<stem>.rejects.csv` in `rejects_dir` (the workspace; without one, beside
+    the file) and counted in the result. `labels` maps queue names in the file to the queue they mean.
+    Arrival times that are not dates are left empty, counted in `bad_times` and warned about.
     """
     reader = _open_reader(path, chunk_rows)
     src = reader.name
-    checker = _RowChecker(schema, require_label=require_label, max_text_chars=max_text_chars)
+    checker = _RowChecker(schema, require_label=require_label, max_text_chars=max_text_chars, labels=labels)
     warn = _Warnings()
     records: list[ItemRecord] = []
     rejects: list[Reject] = []
@@ -522,14 +768,19 @@ def read_items(
                 keys_seen.update(raw)
             result = checker.check(raw, row)
             if isinstance(result, Reject):
+                if row in reader.line_of:
+                    result = Reject(result.row, result.field, result.reason, result.raw, reader.line_of[row])
                 rejects.append(result)
                 continue
             first = first_row_of.setdefault(result.item_id, row)
             if first != row:
                 while checker.truncated and checker.truncated[-1][0] == row:
                     checker.truncated.pop()  # this row is rejected whole, so no note about cutting it
+                while checker.bad_times and checker.bad_times[-1][0] == row:
+                    checker.bad_times.pop()
                 rejects.append(
-                    Reject(row=row, field=schema.id, reason=f"duplicate of row {first}", raw=dict(raw))
+                    Reject(row=row, field=schema.id, reason=f"duplicate of row {first}", raw=dict(raw),
+                           line=reader.line_of.get(row))
                 )
                 continue
             records.append(result)
@@ -552,14 +803,19 @@ def read_items(
             f"{src}: row {row}, field {name!r}: text of {length} characters cut to {max_text_chars}",
         )
 
+    if checker.bad_times:
+        shown = ", ".join(f"row {r} {v!r}" for r, v in checker.bad_times[:5])
+        more = " ..." if len(checker.bad_times) > 5 else ""
+        warn.add(f"{src}: {len(checker.bad_times)} of {rows_read} rows have a time {schema.time!r} that is not a "
+                 f"date and time ({shown}{more}); they are kept without an arrival time, so they are never "
+                 "scored as the newest items")
+    if require_label:
+        for group in similar_labels(Counter(r.label for r in records if r.label)):
+            warn.add(describe_similar(src, group))
+
     rejects_path = None
     if rejects:
-        rejects_path = _rejects_target(reader.path, rejects_dir)
-        try:
-            write_rejects(rejects, rejects_path)
-        except OSError:
-            rejects_path = Path(tempfile.gettempdir()) / rejects_path.name
-            write_rejects(rejects, rejects_path)
+        rejects_path = write_rejects_file(rejects, _rejects_folder(reader.path, rejects_dir), reader.path.stem)
         for r in rejects:
             warn.add_row("rejected rows", describe_reject(src, r))
         warn.add(f"{src}: {len(rejects)} of {rows_read} rows rejected; see {rejects_path}")
@@ -570,6 +826,7 @@ def read_items(
         warnings=warn.finish(src),
         rows_read=rows_read,
         rejects_path=rejects_path,
+        bad_times=list(checker.bad_times),
     )
 
 
@@ -592,27 +849,49 @@ def _check_columns(src: str, present: set[str], schema: Schema, require_label: b
         warn.add(f"{src}: time column {schema.time!r} is not in the file; arrival times left empty")
 
 
-def _rejects_target(source: Path, rejects_dir: Path | None) -> Path:
-    name = f"{source.stem}.rejects.csv"
-    if rejects_dir is not None:
-        return Path(rejects_dir) / name
-    folder = source.resolve().parent
-    if os.access(folder, os.W_OK):
-        return folder / name
-    return Path(tempfile.gettempdir()) / name
+def _rejects_folder(source: Path, rejects_dir: Path | None) -> Path:
+    """Where a rejects file goes: the workspace's folder when given (the rejected rows hold personal data,
+    so they stay where the rest of the data is), else beside the source file. Never the system's temporary
+    folder, which other users of the machine can list."""
+    folder = Path(rejects_dir) if rejects_dir is not None else source.resolve().parent
+    folder.mkdir(parents=True, exist_ok=True)
+    if not os.access(folder, os.W_OK):
+        raise IngestError(f"{source.name}: cannot write the rejects file: {folder} is not writable; no row was "
+                          "imported (give a writable workspace)")
+    return folder
+
+
+def write_rejects_file(rejects: list[Reject], folder: Path, stem: str) -> Path:
+    """Write rejects into a new file `<stem>.rejects.csv` (then `<stem>.rejects-2.csv`, ...) in `folder`,
+    created exclusively with mode 0600: an earlier rejects file is never overwritten, and no one else can
+    read the rows. Returns the path written."""
+    for n in range(1, 10_000):
+        path = folder / (f"{stem}.rejects.csv" if n == 1 else f"{stem}.rejects-{n}.csv")
+        try:
+            fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o600)
+        except FileExistsError:
+            continue
+        with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
+            _write_rejects_to(rejects, fh)
+        return path
+    raise IngestError(f"{folder}: too many rejects files for {stem}; move the old ones away")
 
 
 def write_rejects(rejects: list[Reject], path: Path) -> None:
     """Write rejects as CSV (row, field, reason, record) so they can be fixed and imported again."""
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    with path.open("w", encoding="utf-8", newline="") as fh:
-        w = csv.writer(fh)
-        w.writerow(["row", "field", "reason", "record"])
-        for r in rejects:
-            w.writerow(
-                [r.row, r.field or "", r.reason, json.dumps(r.raw, ensure_ascii=False, default=_json_default)]
-            )
+    fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o600)
+    with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
+        _write_rejects_to(rejects, fh)
+
+
+def _write_rejects_to(rejects: list[Reject], fh: Any) -> None:
+    w = csv.writer(fh)
+    w.writerow(["row", "line", "field", "reason", "record"])
+    for r in rejects:
+        w.writerow([r.row, r.line if r.line is not None else "", r.field or "", r.reason,
+                    json.dumps(r.raw, ensure_ascii=False, default=_json_default)])
 
 
 def _json_default(v: Any) -> Any:
@@ -628,6 +907,7 @@ def read_jsonl_stream(
     source: str = "<stdin>",
     require_label: bool = False,
     max_text_chars: int = 20_000,
+    labels: dict[str, str] | None = None,
 ) -> Iterator[ItemRecord | Reject]:
     """One result per non-blank input line, lazily, so a follower can decide each item as soon as it arrives.
 
@@ -636,7 +916,7 @@ def read_jsonl_stream(
     store decides what a re-sent item means. Over-long text is cut and logged (there is no result to warn in).
     `source` names the stream in log messages.
     """
-    checker = _RowChecker(schema, require_label=require_label, max_text_chars=max_text_chars)
+    checker = _RowChecker(schema, require_label=require_label, max_text_chars=max_text_chars, labels=labels)
     for lineno, text in enumerate(lines, start=1):
         if lineno == 1:
             text = text.removeprefix("\ufeff")

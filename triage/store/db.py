@@ -351,10 +351,12 @@ class Store:
         return [found[i] for i in wanted]
 
     def labelled_items(self) -> list[ItemRecord]:
-        """Items with a current label, ordered by arrival then id (items without an arrival time last)."""
+        """Items with a current label, ordered by arrival then id. Items without an arrival time (or with one
+        that could not be read) come first: the newest items are scored, and an item of unknown age must
+        never be taken for one of them."""
         rows = self._all(
             "SELECT item_id, fields_json, label, arrived_at FROM items WHERE label IS NOT NULL"
-            " ORDER BY arrived_at IS NULL, arrived_at, item_id"
+            " ORDER BY arrived_at IS NOT NULL, arrived_at, item_id"
         )
         return [_item(r) for r in rows]
 
