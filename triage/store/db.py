@@ -154,13 +154,19 @@ class Store:
         self._lock = threading.RLock()
         self._depth = 0
         self._closed = False
+        self.read_only = False
 
     # ------------------------------------------------------------------ opening and transactions
 
     @classmethod
-    def open(cls, path: Path | str) -> Store:
-        """Open (creating if needed) and migrate the store at `path`; raise StoreError when it cannot be used."""
+    def open(cls, path: Path | str, *, read_only: bool = False) -> Store:
+        """Open (creating if needed) and migrate the store at `path`; raise StoreError when it cannot be used.
+
+        `read_only` opens an existing store with SQLite's `mode=ro` URI (a copy on a read-only disk, a folder
+        this user may only read): no migration, no write; a write transaction raises StoreError."""
         path = Path(path)
+        if read_only:
+            return cls._open_read_only(path)
         try:
             conn = sqlite3.connect(
                 path, timeout=BUSY_TIMEOUT_S, isolation_level=None, check_same_thread=False
@@ -174,6 +180,35 @@ class Store:
             conn.close()
             raise
         return cls(path, conn)
+
+    @classmethod
+    def _open_read_only(cls, path: Path) -> Store:
+        if not path.is_file():
+            raise StoreError(f"{path}: no store here (a read-only workspace cannot create one)")
+        uri = path.resolve().as_uri()
+        conn = None
+        # a WAL store needs its -shm file; in a folder no one may write, SQLite can only read the file as
+        # immutable (nothing else can be writing to it there either)
+        for query in ("?mode=ro", "?mode=ro&immutable=1"):
+            try:
+                conn = sqlite3.connect(uri + query, uri=True, timeout=BUSY_TIMEOUT_S, isolation_level=None,
+                                       check_same_thread=False)
+                version = int(conn.execute("PRAGMA user_version").fetchone()[0])
+                break
+            except sqlite3.Error as exc:
+                if conn is not None:
+                    conn.close()
+                conn, last = None, exc
+        if conn is None:
+            raise StoreError(f"{path}: cannot open the store read-only: {last}")
+        if version != LATEST_VERSION:
+            conn.close()
+            raise StoreError(f"{path}: the store has schema version {version}, this triage needs "
+                             f"{LATEST_VERSION}; open it once where it can be written to upgrade it")
+        conn.execute("PRAGMA query_only = ON")
+        store = cls(path, conn)
+        store.read_only = True
+        return store
 
     def close(self) -> None:
         """Close the connection; later calls raise StoreError."""
@@ -214,6 +249,9 @@ class Store:
         """
         with self._lock:
             self._check_open()
+            if self.read_only:
+                raise StoreError(f"{self.path}: the workspace is read-only here; this command needs to write "
+                                 "(run it on a writable copy)")
             if not self._depth and not durable:
                 self._conn.execute("PRAGMA synchronous=NORMAL")
                 try:
