@@ -284,20 +284,6 @@ def test_thousands_declared_in_the_config_reads_1200(ws: Path, tmp_path: Path,
     assert stored(ws)[BAD_ID][1]["tenure_days"] == 1200.0
 
 
-def test_labels_table_maps_look_alike_names(ws: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
-    cfg = ws / "triage.toml"
-    cfg.write_text(cfg.read_text() + '\n[labels]\n"BILLING" = "billing"\n"Billing " = "billing"\n')
-    rows = good()
-    rows[0]["queue"], rows[1]["queue"] = "BILLING", "Billing "
-    src = tmp_path / "m.csv"
-    src.write_text(csv_text(rows), encoding="utf-8")
-    rc, _out, err = run(capsys, "import", src, "-w", ws)
-    assert rc == 0, err
-    now = stored(ws)
-    assert now[rows[0]["ticket_id"]][0] == "billing" and now[rows[1]["ticket_id"]][0] == "billing"
-    assert "differ only" not in err
-
-
 # ---------------------------------------------------------------------------------------------- configs
 CONFIG_CASES = [
     # (id, old text, new text, key words)
