@@ -41,6 +41,7 @@ from sklearn.naive_bayes import BernoulliNB, ComplementNB, MultinomialNB  # noqa
 from sklearn.pipeline import make_pipeline  # noqa: E402
 
 from demo_corpus.generate import generate  # noqa: E402
+from triage.app.training import fit_policy as _fit_policy  # noqa: E402
 from triage.config import load_config  # noqa: E402
 from triage.core.encode import EncodedBatch, Encoder  # noqa: E402
 from triage.core.metrics import solve_cutoff  # noqa: E402
@@ -49,7 +50,6 @@ from triage.core.routing import decide  # noqa: E402
 from triage.core.schema import FieldRole, Schema  # noqa: E402
 from triage.core.selection import fit_rows, out_of_fold_jll, score_jll  # noqa: E402
 from triage.core.tokens import Tokenizer  # noqa: E402
-from triage.workspace import _fit_policy  # noqa: E402
 
 ALPHAS = (0.1, 0.5, 1.0)
 TARGET = 0.95

@@ -40,7 +40,7 @@ if str(REPO) not in sys.path:
 
 import httpx  # noqa: E402
 
-from triage.workspace import Workspace, records_from_dicts  # noqa: E402
+from triage.app import Workspace, records_from_dicts  # noqa: E402
 
 TICKETS = REPO / "demo_corpus" / "voltwren_tickets.csv"
 INCOMING = REPO / "demo_corpus" / "voltwren_incoming.csv"

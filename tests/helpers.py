@@ -7,7 +7,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from triage.workspace import Workspace
+from triage.app import Workspace
 
 ROOT = Path(__file__).resolve().parents[1]
 

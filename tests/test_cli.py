@@ -17,11 +17,11 @@ from pathlib import Path
 
 import pytest
 
+from triage.app import Workspace
 from triage.cli import build_parser, main
 from triage.config import load_config
 from triage.core.schema import FieldRole
 from triage.store import Store
-from triage.workspace import Workspace
 
 REPO = Path(__file__).resolve().parents[1]
 DEMO = REPO / "demo_corpus"

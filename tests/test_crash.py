@@ -19,7 +19,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from triage.workspace import Workspace
+from triage.app import Workspace
 
 pytestmark = pytest.mark.skipif(not hasattr(signal, "SIGKILL"), reason="needs POSIX signals")
 
@@ -147,7 +147,7 @@ def test_sigkill_after_the_journal_commit_is_replayed_exactly_once(ws_dir: Path)
     # the crash point: the correction is journaled (committed), the model version is not written yet
     p = run_python(f"""
         import os, signal
-        from triage.workspace import Workspace
+        from triage.app import Workspace
         ws = Workspace.open({str(ws_dir)!r})
         ws.store.journal_correction({item!r}, "billing", "dana", ws.active_version.version)
         os.kill(os.getpid(), signal.SIGKILL)
@@ -194,7 +194,7 @@ def test_restart_gives_the_same_model_corrections_included(ws_dir: Path) -> None
 
     p = run_python(f"""
         import json
-        from triage.workspace import Workspace
+        from triage.app import Workspace
         ws = Workspace.open({str(ws_dir)!r})
         recs = ws.store.get_items({ids!r})
         jll = ws.model.joint_log_likelihood(ws.model.encoder.transform([r.fields for r in recs], allow_missing=True))

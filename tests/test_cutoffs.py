@@ -7,7 +7,7 @@ from pathlib import Path
 import pytest
 
 from tests.helpers import build_demo_workspace, copy_workspace
-from triage.workspace import Workspace, WorkspaceError
+from triage.app import Workspace, WorkspaceError
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -58,7 +58,7 @@ def test_the_adopted_version_carries_the_scorecard_at_its_cutoffs(trained: Path,
 
 
 def test_adopting_a_grid_row_keeps_the_comments_of_the_config(trained: Path, tmp_path: Path) -> None:
-    from triage import tuning
+    from triage.app import tuning
     from triage.config import load_config
 
     root = copy_workspace(trained, tmp_path)

@@ -8,9 +8,9 @@ from __future__ import annotations
 import numpy as np
 from sklearn.metrics import mutual_info_score
 
+from triage.app.tuning import _informative_terms
 from triage.core.model import ModelSpec, NaiveBayes
 from triage.core.schema import FieldRole, FieldSpec, Schema
-from triage.tuning import _informative_terms
 
 
 def test_informative_terms_rank_words_by_mutual_information_with_the_queue() -> None:

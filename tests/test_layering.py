@@ -40,8 +40,8 @@ def test_the_core_modules_are_found() -> None:
 
 
 def test_lower_layers_load_no_front_end() -> None:
-    names = loaded_after_import([*CORE_MODULES, "triage.store", "triage.ingest", "triage.workspace"])
-    assert "triage.workspace" in names and "triage.store.db" in names
+    names = loaded_after_import([*CORE_MODULES, "triage.store", "triage.ingest", "triage.app"])
+    assert "triage.app.workspace" in names and "triage.store.db" in names
     assert front_ends_in(names) == []
 
 
@@ -49,7 +49,7 @@ def test_the_core_loads_no_sqlite_and_no_store() -> None:
     names = loaded_after_import(CORE_MODULES)
     assert "triage.core.model" in names
     assert "sqlite3" not in names and "_sqlite3" not in names
-    assert not [n for n in names if n.startswith(("triage.store", "triage.workspace", "triage.ingest"))]
+    assert not [n for n in names if n.startswith(("triage.store", "triage.app", "triage.workspace", "triage.ingest"))]
     assert front_ends_in(names) == []
 
 

@@ -14,9 +14,10 @@ import pandas as pd
 import pytest
 
 from tests.helpers import build_demo_workspace, copy_workspace
+from triage.app import Workspace
+from triage.app.active import commit_correction
 from triage.config import ConfigError, config_from_dict
 from triage.records import ItemRecord
-from triage.workspace import Workspace
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -68,7 +69,7 @@ def test_a_correction_journaled_by_one_process_is_applied_once(trained: Path, tm
     c = a.store.journal_correction(item.item_id, target, "dana", a.active_version.version)
     b = Workspace.open(root)  # opening replays the pending correction, as after a crash
     assert b.store.get_correction(c.id).status == "applied"
-    a._commit_correction(c)  # the first process finishing late takes the version the other made
+    commit_correction(a, c)  # the first process finishing late takes the version the other made
     assert a.active_version.version == b.active_version.version
     assert len([x for x in a.store.corrections() if x.status == "applied"]) == 1
     _model_agrees_with_store(a)
@@ -84,7 +85,7 @@ def test_a_correction_against_a_stale_version_is_learned_on_the_newest(trained: 
     b.correct(first.item_id, "safety" if first.label != "safety" else "billing", by="b")
     c = a.store.journal_correction(second.item_id, "cancellations" if second.label != "cancellations"
                                    else "billing", "a", a.active_version.version)
-    a._commit_correction(c)  # a still holds the old version in memory: it must reload, then learn
+    commit_correction(a, c)  # a still holds the old version in memory: it must reload, then learn
     _model_agrees_with_store(a)
     with Workspace.open(root) as fresh:
         _model_agrees_with_store(fresh)

@@ -11,10 +11,9 @@ import numpy as np
 import pytest
 from sklearn.metrics import precision_recall_fscore_support
 
-from triage import tuning
+from triage.app import Workspace, tuning
 from triage.cli import main
 from triage.core.calibrate import IsotonicCalibrator
-from triage.workspace import Workspace
 
 REPO = Path(__file__).resolve().parents[1]
 HELD = "(held)"

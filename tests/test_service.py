@@ -24,9 +24,9 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from starlette.routing import Route
 
+from triage.app import Workspace
 from triage.service import OPENAPI, check_bind, create_app, is_loopback, serve
 from triage.store import Store
-from triage.workspace import Workspace
 
 REPO = Path(__file__).resolve().parents[1]
 TICKETS = REPO / "demo_corpus" / "voltwren_tickets.csv"

@@ -237,7 +237,7 @@ def test_idf_spec_without_its_vector_is_refused() -> None:
 # ----- the settings grid --------------------------------------------------------------------------------------
 @pytest.fixture(scope="module")
 def small_ws(tmp_path_factory: pytest.TempPathFactory):
-    from triage.workspace import Workspace
+    from triage.app import Workspace
 
     d = tmp_path_factory.mktemp("grid")
     root = d / "ws"
@@ -258,7 +258,7 @@ def small_ws(tmp_path_factory: pytest.TempPathFactory):
 
 
 def test_grid_covers_weights_and_transforms_and_adopt_writes_them(small_ws) -> None:
-    from triage import tuning
+    from triage.app import tuning
 
     rows = tuning.run_grid(small_ws, folds=3)
     assert 24 <= len(rows) <= 60

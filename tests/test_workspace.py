@@ -13,9 +13,9 @@ import pytest
 from sklearn.metrics import confusion_matrix, precision_recall_fscore_support
 from statsmodels.stats.proportion import proportion_confint
 
+from triage.app import Workspace, WorkspaceError
 from triage.core.model import NaiveBayes
 from triage.core.routing import decide
-from triage.workspace import Workspace, WorkspaceError
 
 REPO = Path(__file__).resolve().parents[1]
 DEMO = REPO / "demo_corpus"

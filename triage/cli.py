@@ -19,13 +19,13 @@ from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 from rich.table import Table
 
 from triage import __version__
+from triage.app import Workspace, WorkspaceError
 from triage.config import ConfigError
 from triage.core.counts import CountError
 from triage.core.encode import MissingFieldError
 from triage.ingest import IngestError, describe_reject
 from triage.store import StoreError
 from triage.store.artifacts import ArtifactError
-from triage.workspace import Workspace, WorkspaceError
 
 USER_ERRORS = (WorkspaceError, ConfigError, IngestError, StoreError, ArtifactError, CountError, MissingFieldError,
                FileNotFoundError, PermissionError, IsADirectoryError)
@@ -460,7 +460,7 @@ def cmd_overview(args: argparse.Namespace) -> int:
 
 
 def cmd_tune(args: argparse.Namespace) -> int:
-    from triage import tuning
+    from triage.app import tuning
 
     with _ws(args) as ws:
         update, stop = _progress_cb(not args.json and err.is_terminal)
@@ -489,7 +489,7 @@ def cmd_tune(args: argparse.Namespace) -> int:
 
 
 def cmd_lift(args: argparse.Namespace) -> int:
-    from triage import tuning
+    from triage.app import tuning
 
     with _ws(args) as ws:
         data = tuning.lift_for(ws, args.queue)
@@ -510,7 +510,7 @@ def cmd_lift(args: argparse.Namespace) -> int:
 
 
 def cmd_independence(args: argparse.Namespace) -> int:
-    from triage import tuning
+    from triage.app import tuning
 
     with _ws(args) as ws:
         if args.try_merge:

@@ -13,7 +13,7 @@ from typing import Any
 
 import pandas as pd
 
-from triage.workspace import CONFIG_NAME, Progress, Workspace, WorkspaceError
+from triage.app import CONFIG_NAME, Progress, Workspace, WorkspaceError
 
 SCENARIO_FILES = {
     "voltwren": ("voltwren.toml", "voltwren_tickets.csv", "voltwren_incoming.csv", "voltwren_incoming_truth.csv"),

@@ -44,11 +44,11 @@ from starlette.responses import Response
 from starlette.routing import Route
 from starlette.types import ASGIApp, Receive, Scope, Send
 
+from triage.app import Workspace, WorkspaceError
 from triage.core.schema import Schema
 from triage.ingest import Reject, read_jsonl_stream
 from triage.records import ItemRecord
 from triage.store import StoreError
-from triage.workspace import Workspace, WorkspaceError
 
 log = logging.getLogger(__name__)
 

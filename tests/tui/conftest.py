@@ -9,7 +9,7 @@ from pathlib import Path
 
 import pytest
 
-from triage.workspace import Workspace
+from triage.app import Workspace
 
 ROOT = Path(__file__).resolve().parents[2]
 CORPUS = ROOT / "demo_corpus"

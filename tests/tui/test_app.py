@@ -14,7 +14,7 @@ import numpy as np
 from textual import events
 from textual.widgets import DataTable, Static
 
-from triage import tuning
+from triage.app import Workspace, tuning
 from triage.tui.app import TriageApp
 from triage.tui.views import (
     FieldsView,
@@ -26,7 +26,6 @@ from triage.tui.views import (
     grid_cells,
 )
 from triage.tui.widgets import ConfirmScreen, HelpScreen, QueuePicker, marked_text, pct, shade
-from triage.workspace import Workspace
 
 from .pilot import run, screen_text, settle, text_of
 
@@ -546,7 +545,7 @@ def test_readable_at_small_and_large_sizes(workspace_path: Path) -> None:
 
 
 def test_core_and_workspace_do_not_import_textual() -> None:
-    code = ("import sys, triage.workspace, triage.store, triage.core.metrics, triage.core.model, "
+    code = ("import sys, triage.app, triage.store, triage.core.metrics, triage.core.model, "
             "triage.core.routing, triage.core.selection, triage.core.evidence, triage.core.encode; "
             "bad = sorted(m for m in sys.modules if m.split('.')[0] == 'textual' or m.startswith('triage.tui')); "
             "assert not bad, bad")

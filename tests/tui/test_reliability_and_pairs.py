@@ -7,7 +7,7 @@ from pathlib import Path
 
 from textual.widgets import DataTable, Static
 
-from triage import tuning
+from triage.app import tuning
 from triage.tui.app import TriageApp
 from triage.tui.views import PAIR_ROWS, FieldsView, ScorecardView, is_word
 from triage.tui.widgets import ACC_MARK, CONF_MARK, reliability_chart

@@ -16,6 +16,7 @@ from textual.command import DiscoveryHit, Hit, Hits, Provider
 from textual.css.query import NoMatches
 from textual.widgets import Footer, Header, TabbedContent, TabPane
 
+from triage.app import Workspace
 from triage.tui.messages import LabelsChanged, ModelChanged
 from triage.tui.views import (
     FieldsView,
@@ -27,7 +28,6 @@ from triage.tui.views import (
     View,
 )
 from triage.tui.widgets import HelpScreen
-from triage.workspace import Workspace
 
 WIDE = 140
 

@@ -6,7 +6,7 @@ from typing import Any
 
 from textual.widget import Widget
 
-from triage.workspace import Workspace
+from triage.app import Workspace
 
 SCAN_CHUNK = 2000
 BY = "tui"

@@ -10,10 +10,10 @@ from textual.app import ComposeResult
 from textual.containers import VerticalScroll
 from textual.widgets import Static
 
+from triage.app import Workspace
 from triage.tui.widgets import (
     explanation_renderables,
 )
-from triage.workspace import Workspace
 
 
 class ItemDetail(VerticalScroll):

@@ -16,14 +16,13 @@ from textual.widgets import DataTable, Label, OptionList, Static
 from textual.widgets.option_list import Option
 from textual.worker import Worker, WorkerState, get_current_worker
 
-from triage import tuning
+from triage.app import Workspace, tuning
 from triage.tui.views.base import View, _err
 from triage.tui.widgets import (
     num,
     pct,
     shade,
 )
-from triage.workspace import Workspace
 
 PAIR_ROWS = 12
 

@@ -11,12 +11,12 @@ from textual.binding import Binding
 from textual.containers import Container, Horizontal
 from textual.widgets import DataTable, Input, Label, Select
 
+from triage.app import Workspace
 from triage.tui.views.base import SCAN_CHUNK, View
 from triage.tui.views.detail import ItemDetail
 from triage.tui.widgets import (
     num,
 )
-from triage.workspace import Workspace
 
 PAGE_ROWS = 200
 

@@ -12,7 +12,8 @@ from textual.containers import Horizontal
 from textual.widgets import DataTable, Label, ProgressBar
 from textual.worker import Worker, WorkerState
 
-from triage import tuning
+from triage.app import Cancelled, Workspace, tuning
+from triage.app.tuning import GridRow
 from triage.core.model import ModelSpec
 from triage.tui.messages import ModelChanged
 from triage.tui.views.base import View, _err
@@ -21,8 +22,6 @@ from triage.tui.widgets import (
     num,
     pct,
 )
-from triage.tuning import GridRow
-from triage.workspace import Cancelled, Workspace
 
 
 def grid_cells(row: GridRow, names: list[str]) -> list[str]:

@@ -13,6 +13,7 @@ from textual.binding import Binding
 from textual.containers import Container
 from textual.widgets import DataTable, Label
 
+from triage.app import Workspace
 from triage.tui.messages import LabelsChanged
 from triage.tui.views.base import BY, SCAN_CHUNK, View, _err
 from triage.tui.views.detail import ItemDetail
@@ -20,7 +21,6 @@ from triage.tui.widgets import (
     QueuePicker,
     num,
 )
-from triage.workspace import Workspace
 
 REVIEW_LIMIT = 500
 MISROUTE_CONFIDENCE = 0.9

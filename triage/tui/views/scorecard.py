@@ -13,6 +13,7 @@ from textual.containers import Horizontal, Vertical, VerticalScroll
 from textual.widgets import DataTable, Static
 from textual.worker import Worker, WorkerState, get_current_worker
 
+from triage.app import Measurement, Workspace
 from triage.core.metrics import Scorecard
 from triage.tui.messages import ModelChanged
 from triage.tui.views.base import BY, View, _err
@@ -24,7 +25,6 @@ from triage.tui.widgets import (
     reliability_chart,
     text_plot,
 )
-from triage.workspace import Measurement, Workspace
 
 CUTOFF_STEP = 0.01
 CURVE_POINTS = 50

@@ -12,11 +12,12 @@ from __future__ import annotations
 
 import copy
 from dataclasses import dataclass, replace
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import scipy.sparse as sp
 
+from triage.app.training import encode, labelled, spec_from_config
 from triage.core.calibrate import TemperatureScaler
 from triage.core.encode import EncodedBatch, Encoder
 from triage.core.metrics import captured_share, conditional_mutual_information, lift_table, solve_cutoff
@@ -24,7 +25,9 @@ from triage.core.model import TEXT_MODELS
 from triage.core.schema import FieldRole, FieldSpec, Schema
 from triage.core.selection import out_of_fold_jll, score_jll
 from triage.core.tokens import Tokenizer
-from triage.workspace import Workspace, spec_from_config
+
+if TYPE_CHECKING:
+    from triage.app.workspace import Workspace
 
 ALPHAS = (0.1, 0.5, 1.0)
 # conditional mutual information above this (nats) flags a pair as double-counting evidence
@@ -74,7 +77,7 @@ def _restrict(encoder: Encoder, batch: EncodedBatch, bigrams: bool, fields: bool
 def run_grid(ws: Workspace, folds: int = 5, progress: Any = None) -> list[GridRow]:
     """Cross-validate every setting of the grid on the labelled items; best first."""
     say = progress or (lambda _s, _f: None)
-    recs = ws._labelled()
+    recs = labelled(ws)
     items = [r.fields for r in recs]
     labels = [r.label or "" for r in recs]
     base = spec_from_config(ws.config)
@@ -162,8 +165,8 @@ def _coverage(ws: Workspace, jll: np.ndarray, queues: list[str], labels: list[st
 def adopt(ws: Workspace, row: GridRow) -> None:
     """Write a grid row's text settings into triage.toml: text model, alpha, bigrams, the transforms in [model]
     and the text weights in [fields] (fields on/off is reported, not a config setting)."""
+    from triage.app.workspace import CONFIG_NAME
     from triage.config import update_config_text, write_config_atomically
-    from triage.workspace import CONFIG_NAME
 
     updates: dict[tuple[str, str], Any] = {
         ("model", "text_model"): row.text_model, ("model", "alpha_text"): row.alpha_text,
@@ -215,7 +218,7 @@ def independence(ws: Workspace, top_terms: int = 15) -> list[dict[str, Any]]:
     model = ws.model
     if model is None:
         raise ValueError("no model yet; run `triage train` first")
-    recs = ws._labelled()
+    recs = labelled(ws)
     batch = model.encoder.transform([r.fields for r in recs], allow_missing=True)
     qi = {q: i for i, q in enumerate(model.queues)}
     y = np.array([qi.get(r.label or "", -1) for r in recs])
@@ -246,11 +249,11 @@ def try_merge(ws: Workspace, a: str, b: str, folds: int = 5) -> dict[str, Any]:
     The joint field's levels are the code pairs observed on the labelled items, so it counts each combination as
     one piece of evidence instead of two. Both runs share one tokenisation pass and the same folds.
     """
-    recs = ws._labelled()
+    recs = labelled(ws)
     items = [r.fields for r in recs]
     labels = [r.label or "" for r in recs]
     spec = ws.model.spec if ws.model is not None else spec_from_config(ws.config)
-    enc, batch = ws._encode(spec, items)
+    enc, batch = encode(ws, spec, items)
     fields = list(enc.schema.value_fields)
     names = [f.name for f in fields]
     for name in (a, b):

@@ -1,0 +1,145 @@
+"""Routing: deciding items with the active model, storing a run of decisions, and the rule that an id already
+stored with other field values is not routed (decided here, once, for every front end)."""
+
+from __future__ import annotations
+
+from collections.abc import Iterable, Sequence
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from triage.app.active import ActiveModel, require_model
+from triage.core.encode import EncodedBatch
+from triage.core.evidence import strongest_batch
+from triage.core.metrics import population_stability_index
+from triage.core.routing import HELD_WATCH, HELD_WORD, decide, plain_words, watch_hits
+from triage.ingest import IngestResult, read_items
+from triage.records import ItemRecord
+from triage.store import Decision
+
+if TYPE_CHECKING:
+    from triage.app.workspace import Workspace
+
+EVIDENCE_TERMS = 8
+# a population stability index above 0.25 is read as a major shift (common practice in credit scoring, no source)
+PSI_FLAG = 0.25
+
+
+def _decision(active: ActiveModel, rec: ItemRecord, verdict: Any, terms: Sequence[Any],
+              unseen: Sequence[str]) -> dict[str, Any]:
+    return {
+        "id": rec.item_id,
+        "queue": verdict.queue,
+        "suggested": verdict.suggested,
+        "confidence": round(verdict.confidence, 6),
+        "held": verdict.held,
+        "reason": verdict.reason,
+        "runner_up": verdict.runner_up,
+        "runner_up_confidence": round(verdict.runner_up_confidence, 6),
+        "needs_person": verdict.held,
+        # never_auto: the top queue is one a person must always see; watch: such a queue has a real chance
+        "flag": "never_auto" if verdict.suggested in active.policy.never_auto
+        else ("watch" if verdict.reason.startswith((HELD_WATCH, HELD_WORD)) else None),
+        "evidence": [{"feature": t.feature, "weight": round(t.weight, 4), "kind": t.kind} for t in terms],
+        "unseen_words": list(unseen[:20]),
+        "model_version": active.version.version,
+    }
+
+
+def watch_word_hits(ws: Workspace, records: Sequence[ItemRecord]) -> list[list[str]] | None:
+    """Watch-word hits per item, on the plain words of every text field (None when no queue has any)."""
+    watch = ws.config.watch_words()
+    if not watch:
+        return None
+    names = [f.name for f in ws.config.schema.text_fields]
+    return [watch_hits({w for n in names for w in plain_words(r.fields.get(n))}, watch) for r in records]
+
+
+def decide_with_batch(ws: Workspace,
+                      records: Sequence[ItemRecord]) -> tuple[list[dict[str, Any]], EncodedBatch | None]:
+    """Decisions and the encoded matrix behind them (one tokenisation of each text)."""
+    with ws._lock:
+        active = require_model(ws)
+        if not records:
+            return [], None
+        model = active.model
+        batch = model.encoder.transform([r.fields for r in records], allow_missing=True, keep_unknown=True)
+        probs = active.policy.calibrated(model.joint_log_likelihood(batch))
+        verdicts = decide(probs, model.queues, active.policy, watch_word_hits(ws, records))
+        top = np.array([v.top_index for v in verdicts])
+        runner = np.array([v.runner_up_index for v in verdicts])
+        evidence = strongest_batch(model, batch, top, runner, EVIDENCE_TERMS) if len(model.queues) > 1 \
+            else [[] for _ in records]
+        unknown = batch.unknown or tuple(() for _ in records)
+        decisions = [_decision(active, r, v, ev, unk)
+                     for r, v, ev, unk in zip(records, verdicts, evidence, unknown, strict=True)]
+        return decisions, batch
+
+
+def decide_records(ws: Workspace, records: Sequence[ItemRecord]) -> list[dict[str, Any]]:
+    """Decisions for items, without storing anything (a pure read of the active model)."""
+    return decide_with_batch(ws, records)[0]
+
+
+def route_records(ws: Workspace, records: Sequence[ItemRecord], source: str) -> tuple[list[dict[str, Any]], int]:
+    """Decide, store the items (so they can be corrected later) and the decisions in one transaction;
+    returns (decisions, run id)."""
+    with ws._lock:  # the summary reads the same model the decisions came from
+        decisions, batch = decide_with_batch(ws, records)
+        summary = run_summary(ws, decisions, batch)
+    rows = [Decision(item_id=d["id"], model_version=d["model_version"], queue=d["queue"],
+                     suggested=d["suggested"], confidence=d["confidence"], held=d["held"],
+                     runner_up=d["runner_up"], evidence=d["evidence"]) for d in decisions]
+    # decisions can be made again from the stored items: a power cut may lose the newest run, a crash not
+    with ws.store.transaction(durable=False):
+        ws.store.import_items([ItemRecord(r.item_id, r.fields, None, r.arrived_at) for r in records],
+                              source=source)
+        run_id = ws.store.record_batch(source, rows, summary)
+    return decisions, run_id
+
+
+def stored_with_other_fields(ws: Workspace, records: Sequence[ItemRecord]) -> set[str]:
+    """Ids already stored with other field values: routing them would decide on one text and store
+    another, so a later correction would learn what was not routed."""
+    stored = {r.item_id: r.fields for r in ws.store.get_items_if_any([r.item_id for r in records])}
+    return {r.item_id for r in records if r.item_id in stored and stored[r.item_id] != r.fields}
+
+
+def route_file(ws: Workspace, path: Path | str) -> tuple[list[dict[str, Any]], IngestResult, int]:
+    """Route every good row of a file; rows whose id is stored with other fields are left out, with a
+    warning naming them (give a changed item a new id)."""
+    result = read_items(path, ws.config.schema, require_label=False, max_text_chars=ws.config.max_text_chars)
+    clash = stored_with_other_fields(ws, result.records)
+    if clash:
+        result.records = [r for r in result.records if r.item_id not in clash]
+        shown = ", ".join(sorted(clash)[:10]) + (" ..." if len(clash) > 10 else "")
+        result.warnings.append(f"{path}: {len(clash)} item(s) not routed: already stored with other field "
+                               f"values (give a changed item a new id): {shown}")
+    decisions, run_id = route_records(ws, result.records, source=str(path))
+    return decisions, result, run_id
+
+
+def run_summary(ws: Workspace, decisions: Sequence[dict[str, Any]], batch: EncodedBatch | None) -> dict[str, Any]:
+    """Counts per queue and drift figures: the share of each item's distinct words never seen in training,
+    and the shift of the predicted queue mix against the training mix (population stability index)."""
+    active = require_model(ws)
+    n = len(decisions)
+    routed = sum(1 for d in decisions if not d["held"])
+    per_queue: dict[str, int] = {}
+    for d in decisions:
+        per_queue[d["suggested"]] = per_queue.get(d["suggested"], 0) + 1
+    unseen = sum(len(u) for u in batch.unknown) if batch is not None and batch.unknown else 0
+    total = unseen + (batch.X.nnz if batch is not None else 0)
+    queues = active.model.queues
+    expected = active.model.counts.class_count_
+    actual = np.array([per_queue.get(q, 0) for q in queues], dtype=float)
+    psi = population_stability_index(expected, actual) if n else 0.0
+    return {"n": n, "routed": routed, "held": n - routed, "coverage": routed / n if n else 0.0,
+            "per_queue": per_queue, "unseen_word_share": unseen / total if total else 0.0,
+            "queue_mix_psi": psi, "drift_flag": bool(psi > PSI_FLAG)}
+
+
+def records_from_dicts(rows: Iterable[dict[str, Any]]) -> list[ItemRecord]:
+    """Records from plain dicts {id, fields, label, arrived_at} (the shape the service and tests use)."""
+    return [ItemRecord(str(r["id"]), dict(r.get("fields", {})), r.get("label"), r.get("arrived_at")) for r in rows]

@@ -1,0 +1,320 @@
+"""Measuring and training: the honest measurement of a setting (time split or k-fold), choosing settings,
+fitting the final model on every labelled item and activating it, and the scorecard of the active setting."""
+
+from __future__ import annotations
+
+import hashlib
+import time
+from collections.abc import Callable, Sequence
+from dataclasses import replace
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from triage.app.active import ActiveModel, artifact_name, learn_correction, require_model
+from triage.app.decisions import TrainReport
+from triage.app.errors import BadInput, Cancelled
+from triage.app.routing import watch_word_hits
+from triage.config import Config
+from triage.core.calibrate import softmax_rows
+from triage.core.encode import EncodedBatch, Encoder
+from triage.core.measure import CutoffRules, Measurement, reliability_figures, scored_confidence, time_split
+from triage.core.measure import fit_policy as fit_policy_rules
+from triage.core.metrics import scorecard
+from triage.core.model import ModelSpec, NaiveBayes
+from triage.core.routing import RoutingPolicy, decide
+from triage.core.selection import fit_rows, n_folds_for, out_of_fold_jll, quick_grid, select, subset
+from triage.core.tokens import Tokenizer
+from triage.records import ItemRecord
+from triage.store import ModelVersion
+from triage.store.artifacts import save_model
+
+if TYPE_CHECKING:
+    from triage.app.workspace import Workspace
+
+MIN_ITEMS = 20
+Progress = Callable[[str, float], None]
+
+
+def fingerprint(ids: Sequence[str], labels: Sequence[str], config: Config) -> str:
+    """A short hash of the training set (ids with their labels) and the schema."""
+    h = hashlib.sha256()
+    h.update(repr(config.schema).encode())
+    for i, lab in sorted(zip(ids, labels, strict=True)):
+        h.update(f"{i}\x1f{lab}\x1e".encode())
+    return h.hexdigest()[:16]
+
+
+def spec_from_config(config: Config, **overrides: Any) -> ModelSpec:
+    m = config.model
+    spec = ModelSpec(
+        text_model="multinomial" if m.text_model == "auto" else m.text_model,
+        alpha_text=1.0 if m.alpha_text == "auto" else float(m.alpha_text),
+        alpha_fields=float(m.alpha_fields), prior=m.prior, bigrams=bool(m.bigrams), min_count=int(m.min_count),
+        max_vocab=int(m.max_vocab) if m.max_vocab else None, max_token_chars=int(m.max_token_chars),
+        tf_log=bool(m.tf_log), idf=bool(m.idf), length_norm=bool(m.length_norm),
+    )
+    return replace(spec, **overrides)
+
+
+def cutoff_rules(config: Config, queues: Sequence[str]) -> CutoffRules:
+    """The config's cutoff rules for these queues, as the plain values the core fits with."""
+    pinned = {q: config.policy(q).cutoff for q in queues}
+    return CutoffRules(targets={q: config.policy(q).target_precision for q in queues},
+                       pinned={q: c for q, c in pinned.items() if c is not None},
+                       never_auto=config.never_auto(), watch_probability=config.watch_probability)
+
+
+def fit_policy(config: Config, oof: np.ndarray, y: np.ndarray,
+               queues: Sequence[str]) -> tuple[RoutingPolicy, dict[str, Any], dict[str, dict[str, Any]]]:
+    """Calibration and cutoffs from out-of-fold scores under the config's rules (see `core.measure`)."""
+    return fit_policy_rules(oof, y, queues, cutoff_rules(config, queues))
+
+
+def labelled(ws: Workspace) -> list[ItemRecord]:
+    """The labelled items in arrival order; too few to train on is a user error."""
+    recs = ws.store.labelled_items()
+    queues = {r.label for r in recs}
+    if len(recs) < MIN_ITEMS or len(queues) < 2:
+        raise BadInput(
+            f"{ws.root}: {len(recs)} labelled items in {len(queues)} queue(s); training needs at least "
+            f"{MIN_ITEMS} items in 2 or more queues (run `triage import FILE`)"
+        )
+    return recs
+
+
+def encode(ws: Workspace, spec: ModelSpec, items: Sequence[dict[str, Any]]) -> tuple[Encoder, EncodedBatch]:
+    """A fitted encoder and the items' matrix, from one tokenisation pass."""
+    tok = Tokenizer(bigrams=spec.bigrams, max_token_chars=spec.max_token_chars)
+    enc = Encoder(ws.config.schema, tok, min_count=spec.min_count, max_vocab=spec.max_vocab)
+    return enc, enc.fit_transform(items)
+
+
+def measure(ws: Workspace, spec: ModelSpec, recs: Sequence[ItemRecord] | None = None,
+            progress: Progress | None = None,
+            encoded: tuple[Encoder, EncodedBatch] | None = None) -> Measurement:
+    """Calibrate and choose cutoffs on out-of-fold scores of the older items, then score the newest
+    `TEST_SHARE` of items (by arrival time) with a model that never saw them: routing's real use.
+
+    `encoded` is the older items' encoding when the caller has it already (same tokenizer settings)."""
+    say = progress or (lambda _s, _f: None)
+    recs = list(recs) if recs is not None else labelled(ws)
+    older, newer = time_split(recs)
+    labels = [r.label or "" for r in older]
+    say("tokenising", 0.1)
+    enc, batch = encoded if encoded is not None else encode(ws, spec, [r.fields for r in older])
+    say("calibrating on out-of-fold scores", 0.3)
+    oof, queues = out_of_fold_jll(enc, batch, labels, spec, folds=5)
+    qi = {q: i for i, q in enumerate(queues)}
+    y = np.array([qi[lab] for lab in labels])
+    say("choosing cutoffs", 0.5)
+    policy, calibration, cutoff_info = fit_policy(ws.config, oof, y, queues)
+    never, cutoffs = policy.never_auto, dict(policy.cutoffs)
+    say("scoring the newest items", 0.7)
+    model = fit_rows(enc, batch, labels, np.arange(len(labels)), spec, queues)
+    test_batch = enc.transform([r.fields for r in newer], allow_missing=True)
+    test_jll = model.joint_log_likelihood(test_batch)
+    probs = policy.calibrated(test_jll)
+    hits = watch_word_hits(ws, newer)
+    verdicts = decide(probs, model.queues, policy, hits)
+    # the same figures on the newest items, which calibration never saw (an isotonic map is judged here)
+    calibration["holdout"] = reliability_figures(
+        softmax_rows(test_jll), probs, np.array([v.confidence for v in verdicts]),
+        np.array([qi.get(r.label or "", -1) for r in newer]))
+    all_queues = sorted(set(queues) | {r.label for r in newer if r.label})
+    card = scorecard([r.label for r in newer], [v.suggested for v in verdicts], scored_confidence(verdicts),
+                     all_queues, cutoffs, never_auto=never,
+                     targets={q: ws.config.policy(q).target_precision for q in all_queues})
+    split = {"kind": "time", "train_items": len(older), "test_items": len(newer),
+             "test_from": newer[0].arrived_at, "test_to": newer[-1].arrived_at}
+    meas = Measurement(spec, policy, card, calibration, cutoff_info, split, [r.item_id for r in newer],
+                       [r.label or "" for r in newer], probs, list(model.queues), hits)
+    meas.holdout_jll = test_jll
+    return meas
+
+
+def measure_kfold(ws: Workspace, spec: ModelSpec, recs: Sequence[ItemRecord] | None = None, folds: int = 5,
+                  progress: Progress | None = None) -> Measurement:
+    """Stratified k-fold: every labelled item is decided by a model, a calibration and cutoffs that never
+    saw it, so the scorecard covers all items.
+
+    Nested: inside each outer fold, temperature, isotonic map and cutoffs are fitted on an inner out-of-fold
+    pass (5 folds) over that fold's training part alone; the model counted on the whole training part then
+    decides the outer fold's items. The vocabulary is built once over all items (no labels are read for it):
+    a word only the test rows have gets zero counts in training, as an unseen word would.
+    """
+    from sklearn.model_selection import StratifiedKFold
+
+    say = progress or (lambda _s, _f: None)
+    recs = list(recs) if recs is not None else labelled(ws)
+    items = [r.fields for r in recs]
+    labels = [r.label or "" for r in recs]
+    say("tokenising", 0.05)
+    enc, batch = encode(ws, spec, items)
+    queues = sorted(set(labels))
+    qi = {q: i for i, q in enumerate(queues)}
+    y = np.array([qi[lab] for lab in labels])
+    n = len(recs)
+    k = n_folds_for(labels, folds)
+    probs = np.zeros((n, len(queues)))
+    raw = np.zeros((n, len(queues)))
+    fold_of = np.full(n, -1, dtype=np.int64)
+    policies: list[RoutingPolicy] = []
+    fold_info: list[dict[str, Any]] = []
+    splitter = StratifiedKFold(n_splits=k, shuffle=True, random_state=0)
+    for f, (train_rows, test) in enumerate(splitter.split(np.zeros(n), y)):
+        say(f"fold {f + 1}/{k}: calibrating on the training part", 0.1 + 0.8 * f / k)
+        tr_labels = [labels[i] for i in train_rows]
+        inner, inner_queues = out_of_fold_jll(enc, subset(batch, train_rows), tr_labels, spec, folds=5)
+        if inner_queues != queues:  # n_folds_for keeps every queue in every training part
+            raise BadInput(f"fold {f + 1}: a queue is missing from the training part")
+        policy, cal, cut = fit_policy(ws.config, inner, y[train_rows], queues)
+        model = fit_rows(enc, batch, labels, train_rows, spec, queues)
+        jll = model.joint_log_likelihood(subset(batch, test))
+        probs[test], raw[test], fold_of[test] = policy.calibrated(jll), softmax_rows(jll), f
+        policies.append(policy)
+        fold_info.append({"fold": f, "train_items": len(train_rows), "test_items": len(test),
+                          "temperature": cal["temperature"], "isotonic": cal["isotonic"], "cutoffs": cut})
+    hits = watch_word_hits(ws, recs)
+    meas = Measurement(spec, policies[0], scorecard([], [], np.empty(0), queues, {}), {}, {}, {},
+                       [r.item_id for r in recs], labels, probs, queues, hits, fold_of, policies)
+    verdicts = meas.verdicts()
+    routed = np.array([not v.held for v in verdicts])
+    # cutoffs differ by fold: the scorecard gets each item's routing outcome (1 routed, -1 held) against
+    # one representative cutoff per queue (the median over folds), which every routed item meets
+    shown: dict[str, float | None] = {}
+    for q in queues:
+        cs = [p.cutoffs.get(q) for p in policies if p.cutoffs.get(q) is not None]
+        shown[q] = float(np.median(cs)) if cs else None
+    never = policies[0].never_auto
+    meas.scorecard = scorecard(labels, [v.suggested for v in verdicts], np.where(routed, 1.0, -1.0), queues,
+                               shown, never_auto=never,
+                               targets={q: ws.config.policy(q).target_precision for q in queues})
+    used = [bool(fi["isotonic"]["used"]) for fi in fold_info]
+    meas.calibration = {
+        "temperature": float(np.median([fi["temperature"] for fi in fold_info])),
+        "isotonic": {"used": all(used), "folds_used": int(sum(used))} if any(used)
+        else {"used": False, "why": fold_info[0]["isotonic"]["why"]},
+        "measured_on": "out-of-fold decisions (each fold calibrated on its own training part)",
+        "folds": fold_info,
+        **reliability_figures(raw, probs, np.array([v.confidence for v in verdicts]), y),
+    }
+    meas.cutoffs = {q: {"cutoff": shown[q], "per_fold": [p.cutoffs.get(q) for p in policies],
+                        "target": ws.config.policy(q).target_precision, "never_auto": q in never}
+                    for q in queues}
+    meas.split = {"kind": "kfold", "folds": k, "train_items": n - n // k, "test_items": n}
+    say("done", 1.0)
+    return meas
+
+
+def train(ws: Workspace, *, progress: Progress | None = None, cancel: Callable[[], bool] | None = None,
+          note: str = "") -> TrainReport:
+    """Choose settings (unless the config pins them), measure, fit on every labelled item, activate."""
+    t0 = time.perf_counter()
+    say = progress or (lambda _s, _f: None)
+
+    def check() -> None:
+        if cancel is not None and cancel():
+            raise Cancelled("training cancelled; the active model is unchanged")
+
+    say("reading labelled items", 0.0)
+    with ws._lock:  # the labels and the newest correction are read together
+        recs = labelled(ws)
+        journal = ws.store.corrections()
+        pending = [c.id for c in journal if c.status == "pending"]
+        # corrections after the mark are replayed on the new model; a pending one may be applied meanwhile
+        mark = (min(pending) - 1) if pending else max((c.id for c in journal), default=0)
+    base = spec_from_config(ws.config)
+    selection: list[dict[str, Any]] = []
+    encoded: tuple[Encoder, EncodedBatch] | None = None
+    m = ws.config.model
+    if m.text_model == "auto" or m.alpha_text == "auto":
+        specs = [s for s in quick_grid(base)
+                 if (m.text_model == "auto" or s.text_model == m.text_model)
+                 and (m.alpha_text == "auto" or s.alpha_text == float(m.alpha_text))]
+        older, _ = time_split(recs)
+        enc, batch = encode(ws, base, [r.fields for r in older])
+        encoded = (enc, batch)  # the grid varies only the text model and alpha: measure reuses this pass
+        check()
+        say(f"comparing {len(specs)} settings by cross-validation", 0.05)
+
+        def step(i: int, spec: ModelSpec) -> None:
+            check()  # cancelling takes effect between settings, not only between stages
+            say(f"setting {i + 1}/{len(specs)}: {spec.text_model}, alpha {spec.alpha_text:g}",
+                0.05 + 0.05 * i / len(specs))
+
+        best, scores = select(enc, batch, [r.label or "" for r in older], specs, folds=3, before_each=step)
+        selection = [s.to_dict() for s in scores]
+        base = best.spec
+    check()
+    measurement = measure(ws, base, recs, progress=lambda s, f: say(s, 0.1 + 0.6 * f), encoded=encoded)
+    check()
+    say("fitting the final model on every item", 0.8)
+    items = [r.fields for r in recs]
+    labels = [r.label or "" for r in recs]
+    model = NaiveBayes.fit(ws.config.schema, items, labels, base)
+    check()
+    say("saving", 0.95)
+    version = save_trained(ws, model, recs, measurement, selection, note or "trained", kind="train",
+                           corrections_after=mark)
+    say("done", 1.0)
+    return TrainReport(version, measurement, selection, len(recs), time.perf_counter() - t0,
+                       ws.config_warnings({r.label or "" for r in recs}))
+
+
+def save_trained(ws: Workspace, model: NaiveBayes, recs: Sequence[ItemRecord], meas: Measurement,
+                 selection: list[dict[str, Any]], note: str, kind: str,
+                 corrections_after: int | None = None) -> ModelVersion:
+    """Save and activate a trained model. Corrections applied while it was fitting (id above
+    `corrections_after`) are learned on top of it, so none is lost to a training run."""
+    ids = [r.item_id for r in recs]
+    labels = [r.label or "" for r in recs]
+    fp = fingerprint(ids, labels, ws.config)
+    with ws._lock:
+        name = artifact_name(fp)
+        extra = {"policy": meas.policy.to_dict(), "trained_ids": ids, "trained_labels": labels,
+                 "calibration": meas.calibration, "cutoffs": meas.cutoffs, "selection": selection}
+        save_model(model, ws.root / name, fingerprint=fp, extra=extra)
+        config = {"spec": meas.spec.to_dict(), "policy": meas.policy.to_dict(), "base_artifact": name,
+                  "corrections": [], "split": meas.split, "calibration": {
+                      k: v for k, v in meas.calibration.items() if k != "reliability"}}
+        fresh = ActiveModel(None, model, meas.policy, dict(zip(ids, labels, strict=True)), name, [])  # type: ignore[arg-type]
+        # the journal is read and the version added under one write lock: no correction slips in between
+        with ws.store.transaction():
+            if corrections_after is not None:
+                for c in ws.store.corrections():
+                    if c.id > corrections_after and c.status != "pending":
+                        learn_correction(ws, fresh, c)
+            config["corrections"] = list(fresh.corrections)
+            current = ws.store.active_model()
+            parent = current.version if current else None
+            mv = ws.store.add_model_version(parent, kind, config, fp, name,
+                                            scorecard=meas.scorecard.to_dict(), note=note)
+        fresh.version = mv
+        ws._active = fresh
+    return mv
+
+
+def evaluate(ws: Workspace, progress: Progress | None = None, split: str = "time", folds: int = 5) -> Measurement:
+    """The scorecard of the active model's settings on the current labels (corrections included):
+    split "time" scores the newest items, "kfold" every item by stratified k-fold."""
+    active: ActiveModel = require_model(ws)
+    if split == "kfold":
+        if folds < 2:
+            raise BadInput(f"--folds {folds}: k-fold evaluation needs at least 2 folds")
+        return measure_kfold(ws, active.model.spec, folds=folds, progress=progress)
+    if split != "time":
+        raise BadInput(f"unknown split {split!r}; use time or kfold")
+    meas = measure(ws, active.model.spec, progress=progress)
+
+    # routing may use cutoffs set by hand: score the same rows at those too
+    def same(a: float | None, b: float | None) -> bool:
+        return (a is None and b is None) or (a is not None and b is not None and abs(a - b) < 1e-12)
+
+    other = {q: c for q, c in active.policy.cutoffs.items()
+             if q in meas.model_queues and not same(c, meas.policy.cutoffs.get(q))}
+    if other and meas.holdout_jll is not None:
+        # the same test rows decided exactly as routing decides: the active version's calibration too
+        meas.active_cutoffs = other
+        meas.at_active = meas.score_under(replace(active.policy, cutoffs={**dict(meas.policy.cutoffs), **other}))
+    return meas

@@ -1,0 +1,148 @@
+"""The workspace: the one application layer under the command line, the HTTP service and the terminal UI.
+
+A workspace is a folder with `triage.toml` (the config), `triage.db` (the SQLite store) and `models/` (one
+folder per trained model). This class is a thin facade: it opens the folder, owns the config, the store, the
+lock and the active model, and lends its methods from the use-case modules of `triage.app` (training, routing,
+corrections, versions, review), which take the workspace as their first argument.
+"""
+
+from __future__ import annotations
+
+import threading
+from dataclasses import replace
+from pathlib import Path
+
+from triage.app import corrections, review, routing, training, versions
+from triage.app.active import ActiveModel, load_active, load_version, replay_pending
+from triage.app.decisions import ImportReport
+from triage.app.errors import Conflict
+from triage.config import Config, ConfigError, dump_config, load_config
+from triage.core.model import NaiveBayes
+from triage.core.routing import RoutingPolicy
+from triage.ingest import read_items
+from triage.store import ModelVersion, Store
+
+CONFIG_NAME = "triage.toml"
+DB_NAME = "triage.db"
+
+
+class Workspace:
+    """One workspace folder. Safe to share between threads: a lock serialises changes to the active model."""
+
+    def __init__(self, root: Path, config: Config, store: Store) -> None:
+        self.root = root
+        self.config = config
+        self.store = store
+        self._lock = threading.RLock()
+        self._active: ActiveModel | None = None
+        self._config_stamp = self._stamp()
+        load_active(self)
+        replay_pending(self)
+
+    # ----- opening ---------------------------------------------------------------------------------------
+    @classmethod
+    def open(cls, root: Path | str = ".") -> Workspace:
+        root = Path(root).resolve()
+        config = load_config(root / CONFIG_NAME)
+        return cls(root, config, Store.open(root / DB_NAME))
+
+    @staticmethod
+    def create(root: Path | str, config: Config, comments: dict[str, str] | None = None,
+               *, overwrite: bool = False) -> Path:
+        """Write `triage.toml` in a (new) workspace folder."""
+        root = Path(root)
+        root.mkdir(parents=True, exist_ok=True)
+        path = root / CONFIG_NAME
+        if path.exists() and not overwrite:
+            raise Conflict(f"{path} already exists; edit it, or pass --force to replace it")
+        path.write_text(dump_config(config, comments), encoding="utf-8")
+        return path
+
+    def close(self) -> None:
+        self.store.close()
+
+    def __enter__(self) -> Workspace:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    # ----- config ----------------------------------------------------------------------------------------
+    def _stamp(self) -> int | None:
+        try:
+            return (self.root / CONFIG_NAME).stat().st_mtime_ns
+        except OSError:
+            return None
+
+    def _reload_config_if_changed(self) -> None:
+        """A long-running service sees edits to triage.toml (a queue newly marked never-auto, new watch words)
+        without a restart; a config that no longer loads is ignored until it is fixed."""
+        stamp = self._stamp()
+        if stamp == self._config_stamp:
+            return
+        self._config_stamp = stamp
+        try:
+            config = load_config(self.root / CONFIG_NAME)
+        except ConfigError:
+            return
+        self.config = config
+        if self._active is not None:
+            p = self._active.policy
+            self._active.policy = replace(p, never_auto=p.never_auto | config.never_auto(),
+                                          watch_probability=config.watch_probability)
+
+    def config_warnings(self, labels: set[str] | None = None) -> list[str]:
+        """Config entries that match nothing: a queue named in [queues] that no item carries gets no safeguard."""
+        labels = labels if labels is not None else set(self.store.queue_counts())
+        return [f"{self.root / CONFIG_NAME}: [queues.{q}] names no queue of the labelled items "
+                f"(queues: {', '.join(sorted(labels))}); check the spelling, its rules apply to nothing"
+                for q in self.config.queues if q not in labels]
+
+    # ----- the active model ------------------------------------------------------------------------------
+    @property
+    def model(self) -> NaiveBayes | None:
+        return self._active.model if self._active else None
+
+    @property
+    def policy(self) -> RoutingPolicy | None:
+        return self._active.policy if self._active else None
+
+    @property
+    def active_version(self) -> ModelVersion | None:
+        return self._active.version if self._active else None
+
+    def refresh_if_changed(self) -> bool:
+        """Pick up a model version activated by another process (training, rollback); True if it changed."""
+        with self._lock:  # read and swap under the lock, so a correction cannot slip in between
+            self._reload_config_if_changed()
+            mv = self.store.active_model()
+            current = self._active.version.version if self._active else None
+            if (mv.version if mv else None) == current:
+                return False
+            self._active = load_version(self, mv) if mv else None
+            return True
+
+    # ----- items -----------------------------------------------------------------------------------------
+    def import_file(self, path: Path | str, *, progress: bool = False) -> ImportReport:
+        """Read, validate and store a labelled export; bad rows go to the rejects file, good rows are kept."""
+        result = read_items(path, self.config.schema, require_label=True,
+                            max_text_chars=self.config.max_text_chars, progress=progress)
+        summary = self.store.import_items(result.records, source=str(path))
+        return ImportReport(result, summary.added, summary.unchanged, summary.conflicts)
+
+    # ----- the use cases, each in its own module ---------------------------------------------------------
+    measure = training.measure
+    measure_kfold = training.measure_kfold
+    train = training.train
+    evaluate = training.evaluate
+    decide_records = routing.decide_records
+    route_records = routing.route_records
+    route_file = routing.route_file
+    stored_with_other_fields = routing.stored_with_other_fields
+    correct = corrections.correct
+    undo = corrections.undo
+    models = versions.models
+    activate = versions.activate
+    set_cutoffs = versions.set_cutoffs
+    explain = review.explain
+    overview = review.overview
