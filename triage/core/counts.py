@@ -155,11 +155,10 @@ class CountTables:
         return a, b
 
     def merge(self, other: CountTables) -> CountTables:
-        """Add another table's counts (counted on other items with the same encoder); distributed counting is exact."""
-        if other.n_terms != self.n_terms or [t.shape[1] for t in other.field_count_] != [
-            t.shape[1] for t in self.field_count_
-        ]:
-            raise CountError("cannot merge count tables built with different vocabularies or field levels")
+        """Add another table's counts (counted on other items with the same encoder): counting partitions apart
+        and merging gives the tables of one count over all of them, which is what makes a cluster exact.
+        A queue the other table has and this one lacks is added after this one's queues."""
+        self._check_same_encoding(other)
         for name in other.queues_:
             self.queue(name, create=True)
         rows = np.array([self.queue_index_[n] for n in other.queues_], dtype=np.int64)
@@ -169,6 +168,37 @@ class CountTables:
         for mine, theirs in zip(self.field_count_, other.field_count_, strict=True):
             mine[rows] += theirs
         return self
+
+    def subtract(self, other: CountTables) -> CountTables:
+        """Remove another table's counts, counted on a subset of this table's items with the same encoder.
+
+        The training part of a cross-validation fold is the total minus the fold: one count of every item serves
+        every fold. Exact for the integer and half-integer counts of untransformed text (floating-point sums of
+        such numbers do not depend on their order); transformed counts (tf-log, idf, length norm) agree to
+        rounding, and the float dust below 1e-9 that a subtraction can leave is wiped to an exact zero.
+        Refuses (and changes nothing) when the other table holds what this one does not.
+        """
+        self._check_same_encoding(other)
+        missing = [n for n in other.queues_ if n not in self.queue_index_]
+        if missing:
+            raise CountError(f"cannot subtract counts of queue(s) {', '.join(map(repr, missing))}: not counted here")
+        rows = np.array([self.queue_index_[n] for n in other.queues_], dtype=np.int64)
+        pairs = [(self.class_count_, other.class_count_), (self.token_count_, other.token_count_),
+                 (self.doc_freq_, other.doc_freq_), *zip(self.field_count_, other.field_count_, strict=True)]
+        for mine, theirs in pairs:
+            if theirs.size and np.any(mine[rows] < theirs - 1e-9):
+                raise CountError("cannot subtract counts that were never counted here (a count would go negative)")
+        for mine, theirs in pairs:
+            part = mine[rows] - theirs
+            part[part < 1e-9] = 0.0  # exact zeros where everything was removed (and no negative dust)
+            mine[rows] = part
+        return self
+
+    def _check_same_encoding(self, other: CountTables) -> None:
+        if other.n_terms != self.n_terms or [t.shape[1] for t in other.field_count_] != [
+            t.shape[1] for t in self.field_count_
+        ]:
+            raise CountError("cannot combine count tables built with different vocabularies or field levels")
 
     def copy(self) -> CountTables:
         new = CountTables([], 0, [])
@@ -209,6 +239,18 @@ class CountTables:
                 raise CountError(f"{name} have shape {t.shape}, expected {q} rows")
             _check_counts(t, name)
         _check_counts(self.class_count_, "class counts")
+
+
+def merged(tables: Iterable[CountTables]) -> CountTables:
+    """The sum of count tables, in the order given (the first one is copied, never changed)."""
+    it = iter(tables)
+    try:
+        total = next(it).copy()
+    except StopIteration:
+        raise CountError("no count tables to merge") from None
+    for t in it:
+        total.merge(t)
+    return total
 
 
 def _check_counts(values: np.ndarray, what: str = "token counts") -> None:
