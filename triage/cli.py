@@ -15,20 +15,16 @@ from typing import Any
 
 from rich import box
 from rich.console import Console
+from rich.markup import escape
 from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 from rich.table import Table
 
 from triage import __version__
-from triage.app import Workspace, WorkspaceError
-from triage.config import ConfigError
-from triage.core.counts import CountError
-from triage.core.encode import MissingFieldError
-from triage.ingest import IngestError, describe_reject
-from triage.store import StoreError
-from triage.store.artifacts import ArtifactError
+from triage.app import USER_ERRORS as APP_USER_ERRORS
+from triage.app import Workspace, WorkspaceError, describe_reject
 
-USER_ERRORS = (WorkspaceError, ConfigError, IngestError, StoreError, ArtifactError, CountError, MissingFieldError,
-               FileNotFoundError, PermissionError, IsADirectoryError)
+# the error types that exit 2 with one line on stderr; any other exception is a bug and shows its traceback
+USER_ERRORS = (*APP_USER_ERRORS, FileNotFoundError, PermissionError, IsADirectoryError)
 
 SAFETY_NOTE = ("Queues marked never_auto (such as a safety queue) are never auto-routed: a person reviews every item "
                "predicted there, every item that gives such a queue a real chance, and every item that mentions "
@@ -118,7 +114,7 @@ def render_decisions(decisions: Sequence[dict[str, Any]], console: Console = out
         if d.get("flag") == "never_auto":
             decision = f"[b red]person: {d['suggested']}[/]"
         elif d.get("flag") == "watch":
-            decision = f"[b red]held: check {d['reason'].split('(')[-1].rstrip(')')}[/]"
+            decision = f"[b red]held: check {escape(', '.join(d['watch']))}[/]"
         top = ", ".join(f"{e['feature']} {e['weight']:+.1f}" for e in d["evidence"][:2])
         t.add_row(d["id"], decision, f"{d['confidence']:.2f}", d["runner_up"] or "-", top)
     console.print(t)
@@ -130,6 +126,8 @@ def render_explanation(x: dict[str, Any], console: Console = out) -> None:
                   f"runner-up [b]{x['runner_up']}[/] ({_pct(x['runner_up_confidence'])}). {x['reason']}.")
     if x.get("label"):
         console.print(f"Its current label: {x['label']}.")
+    if x.get("stored_note"):
+        console.print(f"Note: {x['stored_note']}.", markup=False)
     console.print(f"The evidence below adds up to the log-odds gap {x['log_odds_gap']:.3f} between the two queues "
                   f"(sum of all {x['n_terms']} terms: {x['terms_total']:.3f}); confidences are calibrated with "
                   f"temperature {x['temperature']:.2f}.")
@@ -168,7 +166,7 @@ def _ws(args: argparse.Namespace) -> Workspace:
 
 
 def cmd_init(args: argparse.Namespace) -> int:
-    from triage.infer import infer_config
+    from triage.app import infer_config
 
     config, reasons = infer_config(args.source, label=args.label)
     path = Workspace.create(args.workspace, config, comments=reasons, overwrite=args.force)
@@ -324,7 +322,7 @@ def cmd_route(args: argparse.Namespace) -> int:
         if args.follow:
             return _follow(ws, args)
         if args.file == "-":
-            from triage.ingest import read_jsonl_stream
+            from triage.app import read_jsonl_stream
 
             records, rejects = [], []
             for r in read_jsonl_stream(sys.stdin, ws.config.schema, max_text_chars=ws.config.max_text_chars):
@@ -353,7 +351,7 @@ def cmd_route(args: argparse.Namespace) -> int:
 
 def _follow(ws: Workspace, args: argparse.Namespace) -> int:
     """Decide each JSON line as soon as it arrives; a bad line gets an error record on stderr, the stream goes on."""
-    from triage.ingest import read_jsonl_stream
+    from triage.app import read_jsonl_stream
 
     stream = sys.stdin if args.file == "-" else open(args.file, encoding="utf-8")  # noqa: SIM115
     try:
@@ -552,7 +550,7 @@ def cmd_independence(args: argparse.Namespace) -> int:
 
 
 def cmd_demo(args: argparse.Namespace) -> int:
-    from triage.demo import build_demo
+    from triage.app.demo import build_demo
 
     update, stop = _progress_cb(not args.json and err.is_terminal)
     try:
@@ -703,11 +701,6 @@ def main(argv: Sequence[str] | None = None) -> int:
         if args.debug:
             raise
         err.print(f"triage {args.command}: error: {exc}", markup=False, highlight=False, soft_wrap=True)
-        return 2
-    except (ValueError, KeyError) as exc:
-        if args.debug:
-            raise
-        err.print(f"triage {args.command}: error: {exc}", markup=False, soft_wrap=True)
         return 2
     except KeyboardInterrupt:
         err.print("interrupted")

@@ -44,11 +44,20 @@ from starlette.responses import Response
 from starlette.routing import Route
 from starlette.types import ASGIApp, Receive, Scope, Send
 
-from triage.app import Workspace, WorkspaceError
-from triage.core.schema import Schema
-from triage.ingest import Reject, read_jsonl_stream
+from triage.app import (
+    BadInput,
+    Conflict,
+    NoModel,
+    Reject,
+    Schema,
+    StoreError,
+    UnknownItem,
+    UnknownQueue,
+    Workspace,
+    WorkspaceError,
+    read_jsonl_stream,
+)
 from triage.records import ItemRecord
-from triage.store import StoreError
 
 log = logging.getLogger(__name__)
 
@@ -290,7 +299,7 @@ class _Service:
         request's work: a check made outside it could load a version older than a correction committed by
         another thread in between, and the next correction would then be learned without that one.
         """
-        lock: threading.RLock = self.ws._lock  # the workspace's own lock (re-entrant), not a second one
+        lock: threading.RLock = self.ws.lock  # the workspace's own lock (re-entrant), not a second one
         with lock:
             self.ws.refresh_if_changed()
             yield self.ws
@@ -412,9 +421,9 @@ class _Service:
             self._require_model(ws)
             ready: list[_Pending] = []
             for job in group:
+                clash = ws.stored_with_other_fields(job.records)
                 for r, p in zip(job.records, job.prefixes, strict=True):
-                    stored = ws.store.get_item(r.item_id)
-                    if stored is not None and stored.fields != r.fields:
+                    if r.item_id in clash:
                         job.error = ApiError(409, f"item {r.item_id!r} is already stored with other field values; "
                                                   "a corrected item needs a new id", f"{p}id")
                         break
@@ -424,7 +433,9 @@ class _Service:
                 return
             try:
                 decisions, _batch = ws.route_records([r for job in ready for r in job.records], SOURCE)
-            except (WorkspaceError, StoreError) as exc:
+            except WorkspaceError as exc:
+                raise ApiError(status_for(exc), self._clean(str(exc))) from exc
+            except StoreError as exc:
                 raise ApiError(409, self._clean(str(exc))) from exc
         at = 0
         for job in ready:
@@ -447,8 +458,9 @@ class _Service:
                     raise ApiError(404, f"no item with id {item_id!r}; route it (or import it) first", "item_id")
                 try:
                     report = ws.correct(item_id, queue, by)
-                except WorkspaceError as exc:  # the item exists and there is a model: the queue name is bad
-                    raise ApiError(422, self._clean(str(exc)), "queue") from exc
+                except WorkspaceError as exc:
+                    field = "item_id" if isinstance(exc, UnknownItem) else "queue"
+                    raise ApiError(status_for(exc), self._clean(str(exc)), field) from exc
                 except StoreError as exc:  # e.g. a correction of this item still pending in another process
                     raise ApiError(409, self._clean(str(exc)), "item_id") from exc
             c = report.correction
@@ -460,6 +472,15 @@ class _Service:
 
     async def openapi_json(self, request: Request) -> Any:
         return self.openapi
+
+
+def status_for(exc: WorkspaceError) -> int:
+    """The HTTP status of a typed application error: the one table the whole service uses."""
+    for kind, status in ((UnknownItem, 404), (NoModel, 409), (Conflict, 409), (UnknownQueue, 422),
+                         (BadInput, 422)):
+        if isinstance(exc, kind):
+            return status
+    return 422  # any other user-facing problem: the request cannot be served as sent
 
 
 @dataclass
@@ -764,7 +785,13 @@ OPENAPI: dict[str, Any] = {
                     "reason": {"type": "string"},
                     "runner_up": {"type": ["string", "null"]},
                     "runner_up_confidence": {"type": "number", "minimum": 0, "maximum": 1},
-                    "needs_person": {"type": "boolean"},
+                    "held_by": {"type": ["string", "null"], "enum": ["never_auto", "watch_word",
+                                "watch_probability", "no_cutoff", "below_cutoff", None],
+                                "description": "why it is held; null when routed"},
+                    "flag": {"type": ["string", "null"], "enum": ["never_auto", "watch", None],
+                             "description": "never_auto or watch: a person must see it (from held_by)"},
+                    "watch": {"type": "array", "items": {"type": "string"},
+                              "description": "the watch-word hits or never-auto queues behind a watch hold"},
                     "evidence": {"type": "array", "items": {"$ref": "#/components/schemas/Evidence"}},
                     "unseen_words": {"type": "array", "items": {"type": "string"}},
                     "model_version": {"type": "integer"},

@@ -186,7 +186,7 @@ def replay_pending(ws: Workspace) -> None:
         return
     if ws._active is None:
         return  # no model yet: they stay journaled and are learned once a model exists and the workspace opens
-    with ws._lock:
+    with ws.lock:
         for c in pending:
             if ws.store.get_correction(c.id).status == "pending":  # another process may have finished it
                 commit_correction(ws, c)

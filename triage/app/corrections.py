@@ -19,7 +19,7 @@ def correct(ws: Workspace, item_id: str, queue: str, by: str = "operator") -> Co
     queue = queue.strip()
     if not queue:
         raise BadInput("the queue to correct to is empty")
-    with ws._lock:
+    with ws.lock:
         ws.refresh_if_changed()  # correct the newest model, whoever activated it
         replay_pending(ws)  # a correction left pending by a failed commit is finished first
         active = require_model(ws)
@@ -38,7 +38,7 @@ def correct(ws: Workspace, item_id: str, queue: str, by: str = "operator") -> Co
 
 def undo(ws: Workspace, by: str = "operator") -> CorrectionReport:
     """Reverse the newest correction that has not been undone (journaled and learned like any correction)."""
-    with ws._lock:
+    with ws.lock:
         ws.refresh_if_changed()
         active = require_model(ws)
         last = ws.store.last_undoable_correction()

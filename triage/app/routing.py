@@ -10,10 +10,11 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from triage.app.active import ActiveModel, require_model
+from triage.app.decisions import RoutingDecision
 from triage.core.encode import EncodedBatch
 from triage.core.evidence import strongest_batch
 from triage.core.metrics import population_stability_index
-from triage.core.routing import HELD_WATCH, HELD_WORD, decide, plain_words, watch_hits
+from triage.core.routing import Verdict, decide, plain_words, watch_hits
 from triage.ingest import IngestResult, read_items
 from triage.records import ItemRecord
 from triage.store import Decision
@@ -26,25 +27,14 @@ EVIDENCE_TERMS = 8
 PSI_FLAG = 0.25
 
 
-def _decision(active: ActiveModel, rec: ItemRecord, verdict: Any, terms: Sequence[Any],
-              unseen: Sequence[str]) -> dict[str, Any]:
-    return {
-        "id": rec.item_id,
-        "queue": verdict.queue,
-        "suggested": verdict.suggested,
-        "confidence": round(verdict.confidence, 6),
-        "held": verdict.held,
-        "reason": verdict.reason,
-        "runner_up": verdict.runner_up,
-        "runner_up_confidence": round(verdict.runner_up_confidence, 6),
-        "needs_person": verdict.held,
-        # never_auto: the top queue is one a person must always see; watch: such a queue has a real chance
-        "flag": "never_auto" if verdict.suggested in active.policy.never_auto
-        else ("watch" if verdict.reason.startswith((HELD_WATCH, HELD_WORD)) else None),
-        "evidence": [{"feature": t.feature, "weight": round(t.weight, 4), "kind": t.kind} for t in terms],
-        "unseen_words": list(unseen[:20]),
-        "model_version": active.version.version,
-    }
+def _decision(active: ActiveModel, rec: ItemRecord, verdict: Verdict, terms: Sequence[Any],
+              unseen: Sequence[str]) -> RoutingDecision:
+    return RoutingDecision(
+        id=rec.item_id, suggested=verdict.suggested, confidence=round(verdict.confidence, 6),
+        runner_up=verdict.runner_up, runner_up_confidence=round(verdict.runner_up_confidence, 6),
+        held_by=verdict.held_by, reason=verdict.reason, watch=verdict.watch,
+        evidence=[{"feature": t.feature, "weight": round(t.weight, 4), "kind": t.kind} for t in terms],
+        unseen_words=list(unseen[:20]), model_version=active.version.version)
 
 
 def watch_word_hits(ws: Workspace, records: Sequence[ItemRecord]) -> list[list[str]] | None:
@@ -56,10 +46,22 @@ def watch_word_hits(ws: Workspace, records: Sequence[ItemRecord]) -> list[list[s
     return [watch_hits({w for n in names for w in plain_words(r.fields.get(n))}, watch) for r in records]
 
 
+def verdicts_for(ws: Workspace, records: Sequence[ItemRecord]) -> list[Verdict]:
+    """The active model's routing verdicts for items, without evidence (cheap: for lists of many items)."""
+    with ws.lock:
+        active = require_model(ws)
+        if not records:
+            return []
+        model = active.model
+        batch = model.encoder.transform([r.fields for r in records], allow_missing=True)
+        probs = active.policy.calibrated(model.joint_log_likelihood(batch))
+        return decide(probs, model.queues, active.policy, watch_word_hits(ws, records))
+
+
 def decide_with_batch(ws: Workspace,
-                      records: Sequence[ItemRecord]) -> tuple[list[dict[str, Any]], EncodedBatch | None]:
+                      records: Sequence[ItemRecord]) -> tuple[list[RoutingDecision], EncodedBatch | None]:
     """Decisions and the encoded matrix behind them (one tokenisation of each text)."""
-    with ws._lock:
+    with ws.lock:
         active = require_model(ws)
         if not records:
             return [], None
@@ -77,26 +79,32 @@ def decide_with_batch(ws: Workspace,
         return decisions, batch
 
 
-def decide_records(ws: Workspace, records: Sequence[ItemRecord]) -> list[dict[str, Any]]:
-    """Decisions for items, without storing anything (a pure read of the active model)."""
+def decisions_for(ws: Workspace, records: Sequence[ItemRecord]) -> list[RoutingDecision]:
+    """Typed decisions for items, without storing anything (a pure read of the active model)."""
     return decide_with_batch(ws, records)[0]
+
+
+def decide_records(ws: Workspace, records: Sequence[ItemRecord]) -> list[dict[str, Any]]:
+    """Decisions for items as JSON records (`RoutingDecision.to_dict`), without storing anything."""
+    return [d.to_dict() for d in decisions_for(ws, records)]
 
 
 def route_records(ws: Workspace, records: Sequence[ItemRecord], source: str) -> tuple[list[dict[str, Any]], int]:
     """Decide, store the items (so they can be corrected later) and the decisions in one transaction;
-    returns (decisions, run id)."""
-    with ws._lock:  # the summary reads the same model the decisions came from
+    returns (decisions as JSON records, run id)."""
+    with ws.lock:  # the summary reads the same model the decisions came from
         decisions, batch = decide_with_batch(ws, records)
         summary = run_summary(ws, decisions, batch)
-    rows = [Decision(item_id=d["id"], model_version=d["model_version"], queue=d["queue"],
-                     suggested=d["suggested"], confidence=d["confidence"], held=d["held"],
-                     runner_up=d["runner_up"], evidence=d["evidence"]) for d in decisions]
+    rows = [Decision(item_id=d.id, model_version=d.model_version, queue=d.queue, suggested=d.suggested,
+                     confidence=d.confidence, held=d.held, runner_up=d.runner_up, evidence=d.evidence,
+                     held_by=d.held_by.value if d.held_by else None, reason=d.reason,
+                     runner_up_confidence=d.runner_up_confidence) for d in decisions]
     # decisions can be made again from the stored items: a power cut may lose the newest run, a crash not
     with ws.store.transaction(durable=False):
         ws.store.import_items([ItemRecord(r.item_id, r.fields, None, r.arrived_at) for r in records],
                               source=source)
         run_id = ws.store.record_batch(source, rows, summary)
-    return decisions, run_id
+    return [d.to_dict() for d in decisions], run_id
 
 
 def stored_with_other_fields(ws: Workspace, records: Sequence[ItemRecord]) -> set[str]:
@@ -120,15 +128,15 @@ def route_file(ws: Workspace, path: Path | str) -> tuple[list[dict[str, Any]], I
     return decisions, result, run_id
 
 
-def run_summary(ws: Workspace, decisions: Sequence[dict[str, Any]], batch: EncodedBatch | None) -> dict[str, Any]:
+def run_summary(ws: Workspace, decisions: Sequence[RoutingDecision], batch: EncodedBatch | None) -> dict[str, Any]:
     """Counts per queue and drift figures: the share of each item's distinct words never seen in training,
     and the shift of the predicted queue mix against the training mix (population stability index)."""
     active = require_model(ws)
     n = len(decisions)
-    routed = sum(1 for d in decisions if not d["held"])
+    routed = sum(1 for d in decisions if not d.held)
     per_queue: dict[str, int] = {}
     for d in decisions:
-        per_queue[d["suggested"]] = per_queue.get(d["suggested"], 0) + 1
+        per_queue[d.suggested] = per_queue.get(d.suggested, 0) + 1
     unseen = sum(len(u) for u in batch.unknown) if batch is not None and batch.unknown else 0
     total = unseen + (batch.X.nnz if batch is not None else 0)
     queues = active.model.queues

@@ -218,7 +218,7 @@ def train(ws: Workspace, *, progress: Progress | None = None, cancel: Callable[[
             raise Cancelled("training cancelled; the active model is unchanged")
 
     say("reading labelled items", 0.0)
-    with ws._lock:  # the labels and the newest correction are read together
+    with ws.lock:  # the labels and the newest correction are read together
         recs = labelled(ws)
         journal = ws.store.corrections()
         pending = [c.id for c in journal if c.status == "pending"]
@@ -270,7 +270,7 @@ def save_trained(ws: Workspace, model: NaiveBayes, recs: Sequence[ItemRecord], m
     ids = [r.item_id for r in recs]
     labels = [r.label or "" for r in recs]
     fp = fingerprint(ids, labels, ws.config)
-    with ws._lock:
+    with ws.lock:
         name = artifact_name(fp)
         extra = {"policy": meas.policy.to_dict(), "trained_ids": ids, "trained_labels": labels,
                  "calibration": meas.calibration, "cutoffs": meas.cutoffs, "selection": selection}

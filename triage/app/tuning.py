@@ -17,10 +17,10 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import scipy.sparse as sp
 
-from triage.app.training import encode, labelled, spec_from_config
-from triage.core.calibrate import TemperatureScaler
+from triage.app.errors import BadInput, NoModel, UnknownQueue
+from triage.app.training import encode, fit_policy, labelled, spec_from_config
 from triage.core.encode import EncodedBatch, Encoder
-from triage.core.metrics import captured_share, conditional_mutual_information, lift_table, solve_cutoff
+from triage.core.metrics import captured_share, conditional_mutual_information, lift_table
 from triage.core.model import TEXT_MODELS
 from triage.core.schema import FieldRole, FieldSpec, Schema
 from triage.core.selection import out_of_fold_jll, score_jll
@@ -147,19 +147,13 @@ def _with_weights(schema: Schema, weights: dict[str, float]) -> Schema:
 
 
 def _coverage(ws: Workspace, jll: np.ndarray, queues: list[str], labels: list[str]) -> float:
+    """The share auto-routed at each queue's target, with cutoffs fitted exactly as training fits them
+    (temperature, isotonic map when there are enough items, the same cutoff rule)."""
     qi = {q: i for i, q in enumerate(queues)}
     y = np.array([qi[lab] for lab in labels])
-    probs = TemperatureScaler().fit(jll, y).transform(jll)
-    top = probs.argmax(axis=1)
-    conf = probs[np.arange(len(y)), top]
-    routed = 0
-    for q, i in qi.items():
-        if q in ws.config.never_auto():
-            continue
-        mine = top == i
-        choice = solve_cutoff(conf[mine], top[mine] == y[mine], ws.config.policy(q).target_precision)
-        routed += choice.routed
-    return routed / len(y)
+    _policy, _calibration, cutoffs = fit_policy(ws.config, jll, y, queues)
+    never = ws.config.never_auto()
+    return sum(c.get("routed", 0) for q, c in cutoffs.items() if q not in never) / len(y)
 
 
 def adopt(ws: Workspace, row: GridRow) -> None:
@@ -187,7 +181,7 @@ def lift_for(ws: Workspace, queue: str) -> dict[str, Any]:
     """Lift and cumulative gains by decile of one queue's calibrated probability, on the held-out newest items."""
     meas = ws.evaluate()
     if queue not in meas.model_queues:
-        raise ValueError(f"queue {queue!r} is not one of the model's queues ({', '.join(meas.model_queues)})")
+        raise UnknownQueue(f"queue {queue!r} is not one of the model's queues ({', '.join(meas.model_queues)})")
     assert meas.holdout_probs is not None
     scores = meas.holdout_probs[:, meas.model_queues.index(queue)]
     positive = np.array([lab == queue for lab in meas.holdout_labels])
@@ -217,7 +211,7 @@ def independence(ws: Workspace, top_terms: int = 15) -> list[dict[str, Any]]:
     """Conditional mutual information given the queue for field pairs and field x top-term pairs, from counts."""
     model = ws.model
     if model is None:
-        raise ValueError("no model yet; run `triage train` first")
+        raise NoModel("no model yet; run `triage train` first")
     recs = labelled(ws)
     batch = model.encoder.transform([r.fields for r in recs], allow_missing=True)
     qi = {q: i for i, q in enumerate(model.queues)}
@@ -258,9 +252,9 @@ def try_merge(ws: Workspace, a: str, b: str, folds: int = 5) -> dict[str, Any]:
     names = [f.name for f in fields]
     for name in (a, b):
         if name not in names:
-            raise ValueError(f"{name!r} is not a category or number field (fields: {', '.join(names)})")
+            raise BadInput(f"{name!r} is not a category or number field (fields: {', '.join(names)})")
     if a == b:
-        raise ValueError("name two different fields to merge")
+        raise BadInput("name two different fields to merge")
     ia, ib = names.index(a), names.index(b)
     la, lb = enc.field_labels(fields[ia]), enc.field_labels(fields[ib])
     pairs = batch.codes[:, ia] * len(lb) + batch.codes[:, ib]

@@ -21,7 +21,7 @@ def models(ws: Workspace) -> list[ModelVersion]:
 
 def activate(ws: Workspace, version: int) -> ModelVersion:
     """Roll back (or forward) to a stored version; it is loaded and checked before it is activated."""
-    with ws._lock:
+    with ws.lock:
         mv = ws.store.get_model_version(version)
         loaded = load_version(ws, mv)
         mv = ws.store.activate_model(version)
@@ -35,7 +35,7 @@ def set_cutoffs(ws: Workspace, cutoffs: dict[str, float | None], by: str = "oper
     """Adopt other cutoffs as a new model version (same counts, new routing policy); rollback restores.
 
     A never-auto queue keeps no cutoff whatever is asked: a person sees every item predicted there."""
-    with ws._lock:
+    with ws.lock:
         active = require_model(ws)
         unknown = set(cutoffs) - set(active.model.queues)
         if unknown:

@@ -33,7 +33,7 @@ class Workspace:
         self.root = root
         self.config = config
         self.store = store
-        self._lock = threading.RLock()
+        self.lock = threading.RLock()
         self._active: ActiveModel | None = None
         self._config_stamp = self._stamp()
         load_active(self)
@@ -113,7 +113,7 @@ class Workspace:
 
     def refresh_if_changed(self) -> bool:
         """Pick up a model version activated by another process (training, rollback); True if it changed."""
-        with self._lock:  # read and swap under the lock, so a correction cannot slip in between
+        with self.lock:  # read and swap under the lock, so a correction cannot slip in between
             self._reload_config_if_changed()
             mv = self.store.active_model()
             current = self._active.version.version if self._active else None

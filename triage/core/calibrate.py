@@ -20,6 +20,8 @@ from scipy.optimize import minimize_scalar
 from scipy.special import logsumexp
 from sklearn.isotonic import IsotonicRegression
 
+from triage.core.model import log_posterior  # the model owns the log-sum-exp normalisation
+
 __all__ = [
     "IsotonicCalibrator",
     "ReliabilityBin",
@@ -29,6 +31,7 @@ __all__ = [
     "log_loss",
     "reliability_table",
     "softmax_rows",
+    "temperature_softmax",
 ]
 
 
@@ -54,6 +57,13 @@ def softmax_rows(logits: np.ndarray) -> np.ndarray:
     if z.shape[0] and not np.isfinite(z).any(axis=1).all():
         raise ValueError("a row of logits has no finite entry")
     return np.exp(z - logsumexp(z, axis=1, keepdims=True))
+
+
+def temperature_softmax(jll: np.ndarray, temperature: float) -> np.ndarray:
+    """softmax(jll / T) by log-sum-exp: the one temperature softmax, used by the scaler and by routing.
+
+    A row impossible under every queue (all -inf, possible without smoothing) becomes uniform, not NaN."""
+    return np.exp(log_posterior(np.atleast_2d(jll) / temperature))
 
 
 def _labels(y: Any, n: int, q: int) -> np.ndarray:
@@ -121,8 +131,7 @@ class TemperatureScaler:
 
     def transform(self, jll: np.ndarray) -> np.ndarray:
         """Calibrated probabilities, shape (n, Q)."""
-        z = self._shifted(_as_2d("jll", jll))
-        return softmax_rows(z / self.temperature)
+        return temperature_softmax(self._shifted(_as_2d("jll", jll)), self.temperature)
 
     def to_dict(self) -> dict[str, Any]:
         return {"kind": "temperature", "temperature": self.temperature, "bounds": list(self.bounds)}

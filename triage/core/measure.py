@@ -22,7 +22,7 @@ from triage.core.calibrate import (
 )
 from triage.core.metrics import Scorecard, precision_coverage_curve, scorecard, solve_cutoff
 from triage.core.model import ModelSpec
-from triage.core.routing import HELD_WATCH, HELD_WORD, RoutingPolicy, Verdict, decide
+from triage.core.routing import RoutingPolicy, Verdict, decide
 
 # the newest share of items (by arrival) a time split scores
 TEST_SHARE = 0.2
@@ -97,7 +97,8 @@ def fit_policy(oof: np.ndarray, y: np.ndarray, queues: Sequence[str],
         mine = top == i
         if q in rules.pinned:
             cutoffs[q] = rules.pinned[q]
-            cutoff_info[q] = {"cutoff": rules.pinned[q], "fixed": True, "target": target}
+            cutoff_info[q] = {"cutoff": rules.pinned[q], "fixed": True, "target": target,
+                              "routed": int((conf[mine] >= rules.pinned[q]).sum()) if q not in never else 0}
             continue
         choice = solve_cutoff(conf[mine], correct[mine], target)
         cutoffs[q] = None if q in never else choice.cutoff
@@ -112,8 +113,7 @@ def fit_policy(oof: np.ndarray, y: np.ndarray, queues: Sequence[str],
 def scored_confidence(verdicts: Sequence[Verdict]) -> np.ndarray:
     """Confidences for the scorecard; an item held by a safeguard (watch word or watch probability) scores -1,
     below every cutoff, so the scorecard's own cutoff rule counts it as held, as routing did."""
-    return np.array([-1.0 if v.held and v.reason.startswith((HELD_WATCH, HELD_WORD)) else v.confidence
-                     for v in verdicts])
+    return np.array([-1.0 if v.held_by is not None and v.held_by.safeguard else v.confidence for v in verdicts])
 
 
 @dataclass

@@ -12,12 +12,12 @@ from __future__ import annotations
 import unicodedata
 from collections.abc import Collection, Mapping, Sequence
 from dataclasses import dataclass, field
+from enum import StrEnum
 
 import numpy as np
 import regex
 
-from triage.core.calibrate import IsotonicCalibrator
-from triage.core.model import log_posterior
+from triage.core.calibrate import IsotonicCalibrator, temperature_softmax
 
 HELD_BELOW_CUTOFF = "below cutoff"
 HELD_NEVER_AUTO = "never auto-routed: a person reviews every item here"
@@ -25,6 +25,21 @@ HELD_NO_CUTOFF = "no cutoff meets this queue's target precision yet"
 HELD_WATCH = "may belong to a never-auto queue"
 HELD_WORD = "mentions a watch word of"
 _PLAIN_WORD = regex.compile(r"[\p{L}\p{M}\p{N}]+")
+
+
+class HeldBy(StrEnum):
+    """Why an item is held for review; decided once, in `decide`, and stored with the decision."""
+
+    NEVER_AUTO = "never_auto"  # its top queue is one a person always sees
+    WATCH_WORD = "watch_word"  # it mentions a watch word of a never-auto queue
+    WATCH_PROBABILITY = "watch_probability"  # a never-auto queue has a real chance
+    NO_CUTOFF = "no_cutoff"  # no cutoff meets its top queue's target precision yet
+    BELOW_CUTOFF = "below_cutoff"  # its confidence is below its top queue's cutoff
+
+    @property
+    def safeguard(self) -> bool:
+        """Held by a never-auto rule although the top queue is another one (watch word or probability)."""
+        return self in (HeldBy.WATCH_WORD, HeldBy.WATCH_PROBABILITY)
 
 
 @dataclass(frozen=True)
@@ -40,15 +55,15 @@ class RoutingPolicy:
     never_auto: frozenset[str] = field(default_factory=frozenset)
     watch_probability: float = 0.10
     temperature: float = 1.0
-    default_cutoff: float | None = None  # for a queue with no solved cutoff (e.g. added by a correction)
     isotonic: IsotonicCalibrator | None = field(default=None, compare=False)
 
     def cutoff(self, queue: str) -> float | None:
-        return self.cutoffs.get(queue, self.default_cutoff)
+        """The queue's cutoff; None (hold everything) for a queue without one, e.g. one added by a correction."""
+        return self.cutoffs.get(queue)
 
     def calibrated(self, jll: np.ndarray) -> np.ndarray:
         """Posterior probabilities with the temperature applied (T > 1 softens NB's over-confidence)."""
-        return np.exp(log_posterior(np.atleast_2d(jll) / self.temperature))
+        return temperature_softmax(jll, self.temperature)
 
     def top_confidence(self, p_top: np.ndarray | float) -> np.ndarray:
         """The routing confidence of a top queue from its temperature-scaled probability (isotonic if fitted)."""
@@ -58,7 +73,6 @@ class RoutingPolicy:
     def to_dict(self) -> dict[str, object]:
         return {"cutoffs": dict(self.cutoffs), "never_auto": sorted(self.never_auto),
                 "watch_probability": self.watch_probability, "temperature": self.temperature,
-                "default_cutoff": self.default_cutoff,
                 "isotonic": self.isotonic.to_dict() if self.isotonic is not None else None}
 
     @classmethod
@@ -66,7 +80,6 @@ class RoutingPolicy:
         return cls(cutoffs=dict(d.get("cutoffs", {})), never_auto=frozenset(d.get("never_auto", [])),
                    watch_probability=float(d.get("watch_probability", 0.10)),
                    temperature=float(d.get("temperature", 1.0)),
-                   default_cutoff=d.get("default_cutoff"),
                    isotonic=IsotonicCalibrator.from_dict(iso) if (iso := d.get("isotonic")) else None)
 
 
@@ -79,10 +92,15 @@ class Verdict:
     runner_up: str | None
     runner_up_confidence: float
     queue: str | None  # None when held
-    held: bool
+    held_by: HeldBy | None  # None when routed
     reason: str
     top_index: int
     runner_up_index: int
+    watch: tuple[str, ...] = ()  # the watch-word hits or the never-auto queues behind a safeguard hold
+
+    @property
+    def held(self) -> bool:
+        return self.held_by is not None
 
 
 def plain_words(text: str | None) -> list[str]:
@@ -125,18 +143,20 @@ def decide(probs: np.ndarray, queues: list[str], policy: RoutingPolicy,
         top, conf = queues[a], float(tops[n])
         cut = policy.cutoff(top)
         watched = [queues[i] for i in watch_idx if i != a and p[i] >= policy.watch_probability]
+        watch: tuple[str, ...] = ()
+        held_by: HeldBy | None
         if top in policy.never_auto:
-            held, reason = True, HELD_NEVER_AUTO
+            held_by, reason = HeldBy.NEVER_AUTO, HELD_NEVER_AUTO
         elif words:
-            held, reason = True, f"{HELD_WORD} {', '.join(words)}"
+            held_by, watch, reason = HeldBy.WATCH_WORD, tuple(words), f"{HELD_WORD} {', '.join(words)}"
         elif watched:
-            held, reason = True, f"{HELD_WATCH} ({', '.join(watched)})"
+            held_by, watch, reason = HeldBy.WATCH_PROBABILITY, tuple(watched), f"{HELD_WATCH} ({', '.join(watched)})"
         elif cut is None:
-            held, reason = True, HELD_NO_CUTOFF
+            held_by, reason = HeldBy.NO_CUTOFF, HELD_NO_CUTOFF
         elif conf < cut:
-            held, reason = True, f"{HELD_BELOW_CUTOFF} ({conf:.2f} < {cut:.2f})"
+            held_by, reason = HeldBy.BELOW_CUTOFF, f"{HELD_BELOW_CUTOFF} ({conf:.2f} < {cut:.2f})"
         else:
-            held, reason = False, f"confidence {conf:.2f} >= cutoff {cut:.2f}"
+            held_by, reason = None, f"confidence {conf:.2f} >= cutoff {cut:.2f}"
         out.append(Verdict(top, conf, queues[b] if b != a else None, float(p[b]) if b != a else 0.0,
-                           None if held else top, held, reason, a, b))
+                           None if held_by is not None else top, held_by, reason, a, b, watch))
     return out

@@ -97,6 +97,9 @@ class Decision:
     evidence: list[dict[str, Any]] = field(default_factory=list)
     decided_at: str | None = None
     batch_id: int | None = None
+    held_by: str | None = None  # why it was held (a HeldBy value); None when routed or stored before it was kept
+    reason: str = ""
+    runner_up_confidence: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -575,7 +578,8 @@ class Store:
             assert batch_id is not None
             self._conn.executemany(
                 "INSERT INTO decisions(batch_id, item_id, model_version, queue, suggested, confidence, held,"
-                " runner_up, evidence_json, decided_at) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                " runner_up, evidence_json, decided_at, held_by, reason, runner_up_confidence)"
+                " VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
                 (
                     (
                         batch_id,
@@ -588,6 +592,9 @@ class Store:
                         d.runner_up,
                         dumps(list(d.evidence)),
                         d.decided_at or now,
+                        d.held_by,
+                        d.reason,
+                        float(d.runner_up_confidence),
                     )
                     for d in decisions
                 ),
@@ -617,6 +624,17 @@ class Store:
         rows = self._all(
             f"SELECT {_DECISION_COLS} FROM decisions{clause} ORDER BY id LIMIT ? OFFSET ?",
             (*params, int(limit), int(offset)),
+        )
+        return [_decision(r) for r in rows]
+
+    def open_held(self, limit: int = 1000, offset: int = 0) -> list[Decision]:
+        """Items waiting for a person: unlabelled items whose latest decision held them, oldest first."""
+        cols = ", ".join(f"d.{c}" for c in _DECISION_COLS.split(", "))
+        rows = self._all(
+            f"SELECT {cols} FROM decisions d JOIN items i ON i.item_id = d.item_id WHERE d.held = 1"
+            " AND i.label IS NULL AND d.id = (SELECT MAX(e.id) FROM decisions e WHERE e.item_id = d.item_id)"
+            " ORDER BY d.id LIMIT ? OFFSET ?",
+            (int(limit), int(offset)),
         )
         return [_decision(r) for r in rows]
 
@@ -769,7 +787,8 @@ def _refuse_newer(path: Path, version: int, latest: int) -> None:
 _CORRECTION_COLS = (
     "id, item_id, from_queue, to_queue, actor, at, base_version, status, applied_version, undo_of"
 )
-_DECISION_COLS = "item_id, model_version, queue, suggested, confidence, held, runner_up, evidence_json, decided_at, batch_id"
+_DECISION_COLS = ("item_id, model_version, queue, suggested, confidence, held, runner_up, evidence_json, decided_at,"
+                  " batch_id, held_by, reason, runner_up_confidence")
 _VERSION_COLS = (
     "version, parent, created_at, kind, config_json, fingerprint, scorecard_json, artifact, active, note"
 )
@@ -781,7 +800,8 @@ def _item(row: tuple[Any, ...]) -> ItemRecord:
 
 
 def _decision(row: tuple[Any, ...]) -> Decision:
-    item_id, version, queue, suggested, confidence, held, runner_up, evidence, decided_at, batch_id = row
+    (item_id, version, queue, suggested, confidence, held, runner_up, evidence, decided_at, batch_id, held_by,
+     reason, runner_conf) = row
     return Decision(
         item_id=item_id,
         model_version=version,
@@ -793,6 +813,9 @@ def _decision(row: tuple[Any, ...]) -> Decision:
         evidence=json.loads(evidence),
         decided_at=decided_at,
         batch_id=batch_id,
+        held_by=held_by,
+        reason=reason,
+        runner_up_confidence=float(runner_conf or 0.0),
     )
 
 

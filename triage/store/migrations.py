@@ -89,7 +89,15 @@ CREATE TABLE model_versions (
 CREATE UNIQUE INDEX model_versions_one_active ON model_versions(active) WHERE active = 1;
 """
 
-MIGRATIONS: list[str] = [_V1]
+# 2: a stored decision says why it was held (a triage.core.routing.HeldBy value), its reason text and the
+# runner-up's confidence (the review list orders close calls by it)
+_V2 = """
+ALTER TABLE decisions ADD COLUMN held_by TEXT;
+ALTER TABLE decisions ADD COLUMN reason TEXT NOT NULL DEFAULT '';
+ALTER TABLE decisions ADD COLUMN runner_up_confidence REAL;
+"""
+
+MIGRATIONS: list[str] = [_V1, _V2]
 LATEST_VERSION = len(MIGRATIONS)
 
 

@@ -23,11 +23,3 @@ class LabelsChanged(Message):
     queue: str | None
     version: int
     undo: bool = False
-
-
-@dataclass
-class TrainProgress(Message):
-    """A stage of a training run, with the share done (0..1)."""
-
-    stage: str
-    fraction: float

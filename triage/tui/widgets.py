@@ -146,6 +146,8 @@ def explanation_renderables(ex: Mapping[str, Any], text_fields: Iterable[str]) -
     head.append(str(ex["reason"]))
     if ex.get("label"):
         head.append(f"   label: {ex['label']}", style="bold")
+    if ex.get("stored_note"):
+        head.append(f"\n{ex['stored_note']}", style="magenta")
     body = Text()
     for name in text_fields:
         value = ex["fields"].get(name)

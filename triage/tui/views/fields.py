@@ -4,7 +4,6 @@ from __future__ import annotations
 
 from typing import Any
 
-import numpy as np
 from rich.console import Group
 from rich.table import Table
 from rich.text import Text
@@ -17,6 +16,7 @@ from textual.widgets.option_list import Option
 from textual.worker import Worker, WorkerState, get_current_worker
 
 from triage.app import Workspace, tuning
+from triage.app.review import field_table
 from triage.tui.views.base import View, _err
 from triage.tui.widgets import (
     num,
@@ -196,29 +196,22 @@ class FieldsView(View):
     def on_option_list_option_highlighted(self, event: OptionList.OptionHighlighted) -> None:
         self.show_field(event.option_index)
     def show_field(self, k: int | None) -> None:
-        model = self.ws.model
         counts_t = self.query_one("#field-counts", DataTable)
         probs_t = self.query_one("#field-probs", DataTable)
         counts_t.clear(columns=True)
         probs_t.clear(columns=True)
-        fields = self.ws.config.schema.value_fields
-        if model is None or k is None or k >= len(fields):
+        table = field_table(self.ws, k) if k is not None else None
+        if table is None:
             self.query_one("#field-title", Label).update("no model yet")
             return
-        f = model.encoder.schema.value_fields[k]
-        labels = model.encoder.field_labels(f)
-        counts = model.counts.field_count_[k]
-        logp = model.field_log_[k]
         self.query_one("#field-title", Label).update(
-            f"{f.name} ({f.role.value}): items per value and queue (counts; alpha {model.spec.alpha_fields:g} smooths the "
+            f"{table.name} ({table.role}): items per value and queue (counts; alpha {table.alpha:g} smooths the "
             "probabilities below)")
         counts_t.add_column("queue", key="queue")
         probs_t.add_column("queue", key="queue")
-        for j, lab in enumerate(labels):
+        for j, lab in enumerate(table.values):
             counts_t.add_column(lab, key=f"c{j}")
             probs_t.add_column(lab, key=f"p{j}")
-        for i, q in enumerate(model.queues):
-            row = [int(counts[i, j]) if j < counts.shape[1] else 0 for j in range(len(labels))]
+        for q, row, ps in zip(table.queues, table.counts, table.probabilities, strict=True):
             counts_t.add_row(q, *[str(v) for v in row])
-            ps = np.exp(logp[i])
             probs_t.add_row(q, *[f"{p:.3f}{shade(p)}" for p in ps])

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 from typing import Any
 
 from textual import work
@@ -12,23 +11,15 @@ from textual.containers import Container, Horizontal
 from textual.widgets import DataTable, Input, Label, Select
 
 from triage.app import Workspace
-from triage.tui.views.base import SCAN_CHUNK, View
+from triage.app.review import IncomingRow as Row
+from triage.app.review import incoming
+from triage.tui.views.base import View
 from triage.tui.views.detail import ItemDetail
 from triage.tui.widgets import (
     num,
 )
 
 PAGE_ROWS = 200
-
-
-@dataclass(frozen=True)
-class Row:
-    item_id: str
-    suggested: str | None
-    confidence: float
-    held: bool
-    runner_up: str | None
-    queue: str | None
 
 
 class IncomingView(View):
@@ -83,24 +74,9 @@ class IncomingView(View):
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="incoming")
     def load(self) -> None:
-        batch = self.ws.store.latest_batch()
-        if batch is None:
-            self.app.call_from_thread(self._loaded, None, [])
-            return
         queue, held, text = self.filters()
-        rows: list[Row] = []
-        offset = 0
-        while True:
-            chunk = self.ws.store.decisions(batch_id=batch.id, held=held, limit=SCAN_CHUNK, offset=offset)
-            if not chunk:
-                break
-            offset += len(chunk)
-            keep = [d for d in chunk if queue is None or d.suggested == queue]
-            if text and keep:
-                items = {r.item_id: r for r in self.ws.store.get_items([d.item_id for d in keep])}
-                keep = [d for d in keep if any(text in str(v).lower() for v in items[d.item_id].fields.values())]
-            rows.extend(Row(d.item_id, d.suggested, d.confidence, d.held, d.runner_up, d.queue) for d in keep)
-        self.app.call_from_thread(self._loaded, batch.id, rows)
+        run_id, rows = incoming(self.ws, queue, held, text)
+        self.app.call_from_thread(self._loaded, run_id, rows)
 
     def _loaded(self, batch_id: int | None, rows: list[Row]) -> None:
         self.batch_id = batch_id

@@ -12,9 +12,8 @@ from textual.containers import Horizontal
 from textual.widgets import DataTable, Label, ProgressBar
 from textual.worker import Worker, WorkerState
 
-from triage.app import Cancelled, Workspace, tuning
+from triage.app import Cancelled, ModelSpec, Workspace, tuning
 from triage.app.tuning import GridRow
-from triage.core.model import ModelSpec
 from triage.tui.messages import ModelChanged
 from triage.tui.views.base import View, _err
 from triage.tui.widgets import (

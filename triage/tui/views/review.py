@@ -2,10 +2,8 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 from typing import Any
 
-import numpy as np
 from rich.text import Text
 from textual import work
 from textual.app import ComposeResult
@@ -14,79 +12,14 @@ from textual.containers import Container
 from textual.widgets import DataTable, Label
 
 from triage.app import Workspace
+from triage.app.review import WorkItem, worklist
 from triage.tui.messages import LabelsChanged
-from triage.tui.views.base import BY, SCAN_CHUNK, View, _err
+from triage.tui.views.base import BY, View, _err
 from triage.tui.views.detail import ItemDetail
 from triage.tui.widgets import (
     QueuePicker,
     num,
 )
-
-REVIEW_LIMIT = 500
-MISROUTE_CONFIDENCE = 0.9
-
-
-@dataclass(frozen=True)
-class WorkItem:
-    """One line of the review worklist."""
-
-    item_id: str
-    why: str  # "person must review" | "likely misroute" | "held"
-    suggested: str
-    confidence: float
-    runner_up: str | None
-    runner_up_confidence: float
-    label: str | None
-    score: float
-
-
-def worklist(ws: Workspace, limit: int = REVIEW_LIMIT) -> list[WorkItem]:
-    """Held items and likely misroutes, most useful first.
-
-    First the items a person must review (suggested for a never-auto queue in the batch or now: they stay on
-    the list until someone gives them a queue), then labelled items whose label a confident model disagrees
-    with (highest confidence first), then the other held items, closest calls first (runner-up's confidence
-    descending). An item leaves the list when it gets a label, or when the current model routes it.
-    """
-    model, policy = ws.model, ws.policy
-    if model is None or policy is None:
-        return []
-    never = set(ws.config.never_auto())
-    out: list[WorkItem] = []
-    batch = ws.store.latest_batch()
-    if batch is not None:
-        offset = 0
-        while True:
-            chunk = ws.store.decisions(batch_id=batch.id, held=True, limit=SCAN_CHUNK, offset=offset)
-            if not chunk:
-                break
-            offset += len(chunk)
-            recs = [r for r in ws.store.get_items([d.item_id for d in chunk]) if r.label is None]
-            if not recs:
-                continue
-            sticky = {d.item_id for d in chunk if d.suggested in never}
-            for rec, d in zip(recs, ws.decide_records(recs), strict=True):
-                person = d["suggested"] in never or rec.item_id in sticky
-                if not person and not d["held"]:
-                    continue
-                why = "person must review" if person else "held"
-                score = 3.0 + d["confidence"] if person else d["runner_up_confidence"]
-                out.append(WorkItem(rec.item_id, why, d["suggested"], d["confidence"], d["runner_up"],
-                                    d["runner_up_confidence"], None, score))
-    labelled = ws.store.labelled_items()
-    if labelled:
-        enc = model.encoder.transform([r.fields for r in labelled], allow_missing=True)
-        probs = policy.calibrated(model.joint_log_likelihood(enc))
-        order = np.argsort(-probs, axis=1)
-        queues = model.queues
-        for i, rec in enumerate(labelled):
-            a, b = int(order[i, 0]), int(order[i, 1]) if probs.shape[1] > 1 else int(order[i, 0])
-            conf = float(probs[i, a])
-            if queues[a] != rec.label and conf >= MISROUTE_CONFIDENCE:
-                out.append(WorkItem(rec.item_id, "likely misroute", queues[a], conf, queues[b], float(probs[i, b]),
-                                    rec.label, 1.0 + conf))
-    out.sort(key=lambda w: -w.score)
-    return out[:limit]
 
 
 class ReviewView(View):

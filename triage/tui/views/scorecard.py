@@ -13,8 +13,7 @@ from textual.containers import Horizontal, Vertical, VerticalScroll
 from textual.widgets import DataTable, Static
 from textual.worker import Worker, WorkerState, get_current_worker
 
-from triage.app import Measurement, Workspace
-from triage.core.metrics import Scorecard
+from triage.app import Measurement, Scorecard, Workspace
 from triage.tui.messages import ModelChanged
 from triage.tui.views.base import BY, View, _err
 from triage.tui.widgets import (

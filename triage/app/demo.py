@@ -13,7 +13,9 @@ from typing import Any
 
 import pandas as pd
 
-from triage.app import CONFIG_NAME, Progress, Workspace, WorkspaceError
+from triage.app.errors import BadInput, Conflict
+from triage.app.training import Progress
+from triage.app.workspace import CONFIG_NAME, Workspace
 
 SCENARIO_FILES = {
     "voltwren": ("voltwren.toml", "voltwren_tickets.csv", "voltwren_incoming.csv", "voltwren_incoming_truth.csv"),
@@ -37,15 +39,15 @@ def build_demo(root: Path, scenario: str = "voltwren", *, progress: Progress | N
                force: bool = False) -> dict[str, Any]:
     """Create the workspace, import the history, train, route the incoming batch; returns what happened."""
     if scenario not in SCENARIO_FILES:
-        raise WorkspaceError(f"unknown scenario {scenario!r}; choose one of {', '.join(SCENARIO_FILES)}")
+        raise BadInput(f"unknown scenario {scenario!r}; choose one of {', '.join(SCENARIO_FILES)}")
     say = progress or (lambda _s, _f: None)
     cfg_name, history, incoming, truth = SCENARIO_FILES[scenario]
     root = Path(root)
     if root.exists() and any(root.iterdir()):
         if not force:
-            raise WorkspaceError(f"{root} exists and is not empty; pass --force to rebuild it, or name another folder")
+            raise Conflict(f"{root} exists and is not empty; pass --force to rebuild it, or name another folder")
         if not (root / CONFIG_NAME).exists():
-            raise WorkspaceError(f"{root} is not a triage workspace; refusing to delete it")
+            raise Conflict(f"{root} is not a triage workspace; refusing to delete it")
         shutil.rmtree(root)
     root.mkdir(parents=True, exist_ok=True)
     shutil.copyfile(_config(cfg_name), root / CONFIG_NAME)
