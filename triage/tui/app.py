@@ -9,7 +9,7 @@ from collections.abc import Callable
 from functools import partial
 from pathlib import Path
 
-from textual import events
+from textual import events, work
 from textual.app import App, ComposeResult
 from textual.binding import Binding
 from textual.command import DiscoveryHit, Hit, Hits, Provider
@@ -18,6 +18,7 @@ from textual.widgets import Footer, Header, TabbedContent, TabPane
 
 from triage.app import Workspace
 from triage.tui.messages import LabelsChanged, ModelChanged
+from triage.tui.outside import POLL_SECONDS, outside_stamp
 from triage.tui.views import (
     FieldsView,
     IncomingView,
@@ -87,9 +88,11 @@ class TriageApp(App[None]):
         Binding("q", "quit", "Quit", id="app.quit", tooltip="Leave triage"),
     ]
 
-    def __init__(self, workspace: Workspace) -> None:
+    def __init__(self, workspace: Workspace, poll_seconds: float = POLL_SECONDS) -> None:
         super().__init__()
         self.ws = workspace
+        self.poll_seconds = poll_seconds
+        self.outside: tuple[int, int | None] | None = None  # the store's and the config's change stamps
         self.sub_title = str(workspace.root.name)
 
     def compose(self) -> ComposeResult:
@@ -101,8 +104,10 @@ class TriageApp(App[None]):
         yield Footer(compact=True)
 
     def on_mount(self) -> None:
-        self.call_after_refresh(self.view("overview").focus_main)
+        self.call_after_refresh(self._focus_active)
         self._fit(self.size.width)
+        self.outside = outside_stamp(self.ws)
+        self.set_interval(self.poll_seconds, self.look_outside)
 
     def on_resize(self, event: events.Resize) -> None:
         self._fit(event.size.width)
@@ -111,30 +116,61 @@ class TriageApp(App[None]):
         """Wide terminals put panels side by side (the stylesheet keys on the `wide` class)."""
         self.set_class(width >= WIDE, "wide")
 
-    # ----- views -----
+    # ----- views and the focus -----
     def view(self, key: str) -> View:
         return self.query_one(f"#{key}-view", View)
 
+    @property
+    def active_key(self) -> str:
+        """The key of the view on screen."""
+        return self.query_one(TabbedContent).active
+
     def action_show(self, key: str) -> None:
+        """Switch the tab only; the focus follows in `_focus_active`, the one place that moves it between views."""
         self.query_one(TabbedContent).active = key
-        self.view(key).focus_main()
 
     def on_tabbed_content_tab_activated(self, event: TabbedContent.TabActivated) -> None:
-        if event.pane.id:
-            self.call_after_refresh(self._focus_view, event.pane.id)
+        self.call_after_refresh(self._focus_active)
 
-    def _focus_view(self, key: str) -> None:
+    def _focus_active(self) -> None:
+        """Give the view on screen its main widget's focus.
+
+        It reads the active tab when it runs, not the tab of the message that asked for it: with keys pressed
+        faster than the screen refreshes, an older request focusing an older view would switch the tabs back
+        (a focused widget selects its pane), which asks again, and two views would take turns for ever.
+        """
         try:
-            view = self.view(key)
+            view = self.view(self.active_key)
         except NoMatches:  # the app is closing: the views are gone
             return
         view.focus_main()
 
     def action_reload(self) -> None:
+        self.outside = outside_stamp(self.ws)
         self.ws.refresh_if_changed()
+        self.reload_all()
+        self.notify("read the workspace again")
+
+    def reload_all(self) -> None:
         for key, *_ in VIEWS:
             self.view(key).reload()
-        self.notify("read the workspace again")
+
+    # ----- another process (the command line, the service, a second UI) changed the workspace -----
+    @work(thread=True, exclusive=True, exit_on_error=False, group="outside")
+    def look_outside(self) -> None:
+        """Read the change stamps in a thread (the store's lock may be held by a running transaction)."""
+        stamp = outside_stamp(self.ws)
+        if stamp != self.outside:
+            changed = self.ws.refresh_if_changed()
+            self.call_from_thread(self._changed_outside, stamp, changed)
+
+    def _changed_outside(self, stamp: tuple[int, int | None], new_version: bool) -> None:
+        self.outside = stamp
+        self.reload_all()
+        what = (f"model version {self.ws.active_version.version} is active now" if new_version and
+                self.ws.active_version else "items, decisions or settings changed")
+        self.notify(f"another process changed the workspace: {what}; every view was read again",
+                    title="changed elsewhere", timeout=6)
 
     # ----- actions the palette reaches -----
     def models_view(self) -> ModelsView:

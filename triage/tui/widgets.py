@@ -15,7 +15,7 @@ from rich.table import Table
 from rich.text import Text
 from textual.app import ComposeResult
 from textual.binding import Binding
-from textual.containers import Vertical
+from textual.containers import Vertical, VerticalScroll
 from textual.screen import ModalScreen
 from textual.widgets import Button, Label, OptionList, Static
 from textual.widgets.option_list import Option
@@ -290,7 +290,11 @@ class QueuePicker(ModalScreen[str | None]):
 
 
 class HelpScreen(ModalScreen[None]):
-    """Every key of the app and of each view."""
+    """Every key of the app and of each view, in a scrolling panel (the list is longer than a small terminal).
+
+    The table gets a width from the panel (not from measuring itself): a rich Table inside auto-sized
+    containers measures as 0x0 in Textual and nothing is drawn.
+    """
 
     BINDINGS = [Binding("escape,q,question_mark,f1", "leave", "Close", id="help.close", tooltip="Close the key list")]
 
@@ -299,17 +303,23 @@ class HelpScreen(ModalScreen[None]):
         self.sections = sections
 
     def compose(self) -> ComposeResult:
-        t = Table(title="keys (escape closes)", title_justify="left", show_edge=False, box=None, padding=(0, 2))
-        t.add_column("where", style="bold")
-        t.add_column("key", style="bold cyan", no_wrap=True)
-        t.add_column("does")
+        t = Table(show_edge=False, box=None, padding=(0, 1), expand=True)
+        t.add_column("where", style="bold", no_wrap=True)
+        t.add_column("key", style="bold", no_wrap=True)
+        t.add_column("does", ratio=1)
         for where, keys in self.sections:
             first = True
             for key, what in keys:
                 t.add_row(where if first else "", key, what)
                 first = False
-        with Vertical(id="dialog"):
-            yield Static(t, id="help-keys")
+        with Vertical(id="help-dialog") as box:
+            box.border_title = "keys"
+            box.border_subtitle = "escape closes · arrows scroll"
+            with VerticalScroll(id="help-scroll"):
+                yield Static(t, id="help-keys")
+
+    def on_mount(self) -> None:
+        self.query_one("#help-scroll").focus()
 
     def action_leave(self) -> None:
         self.dismiss(None)

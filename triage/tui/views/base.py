@@ -29,6 +29,12 @@ class View(Widget):
     def reload(self) -> None:  # pragma: no cover - overridden
         pass
 
+    @property
+    def shown(self) -> bool:
+        """Whether this view is the one on screen. A view that is not must never take the focus itself: a focused
+        widget selects its tab, so focusing from a hidden view would switch views under the user's hands."""
+        return getattr(self.app, "active_key", None) == (self.id or "").removesuffix("-view")
+
     def focus_main(self) -> None:
         if self.main_id:
             try:

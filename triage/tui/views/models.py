@@ -197,7 +197,8 @@ class ModelsView(View):
         self.show_grid()
         g = self.query_one("#grid-table", DataTable)
         g.move_cursor(row=0)
-        g.focus()
+        if self.shown:
+            g.focus()
 
     def show_grid(self) -> None:
         g = self.query_one("#grid-table", DataTable)

@@ -109,6 +109,14 @@ class ReviewView(View):
             self.correct(w, w.suggested)
 
     def correct(self, w: WorkItem, queue: str) -> None:
+        current = self.ws.store.get_item(w.item_id)
+        if current is not None and current.label == queue:
+            # the row is older than the item's label (another process decided it): learning it again would
+            # record "queue -> queue" as a new model version
+            self.items = [x for x in self.items if x.item_id != w.item_id]
+            self.show()
+            self.notify(f"{w.item_id} is already in {queue} (decided elsewhere); nothing recorded")
+            return
         try:
             report = self.ws.correct(w.item_id, queue, by=BY)
         except Exception as exc:  # noqa: BLE001 - shown to the user
