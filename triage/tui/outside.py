@@ -7,7 +7,7 @@ edits of triage.toml. Polling the pair every few seconds is cheap: one pragma an
 
 from __future__ import annotations
 
-from triage.workspace import CONFIG_NAME, Workspace
+from triage.app import CONFIG_NAME, Workspace
 
 POLL_SECONDS = 2.0
 
