@@ -167,7 +167,7 @@ def main(argv: list[str] | None = None) -> int:
     top, conf = oof.argmax(axis=1), oof.max(axis=1)
     never = {qi[q] for q in policy.never_auto if q in qi}
     cut_lr = {i: (None if i in never else solve_cutoff(conf[top == i], y[top == i] == i,
-                                                       config.policy(q).target_precision).cutoff)
+                                                       config.queue_settings(q).target_precision).cutoff)
               for q, i in qi.items()}
     pipe.fit(lr_old, y)
     p_new = pipe.predict_proba(lr_new)

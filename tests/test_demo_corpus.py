@@ -174,8 +174,8 @@ def test_config_loads_and_names_existing_columns(scenario: str) -> None:
 def test_safety_queue_is_never_auto_routed() -> None:
     path = CONFIGS["voltwren"]
     cfg = config_from_dict(tomllib.loads(path.read_text(encoding="utf-8")), path)
-    assert cfg.policy("safety").never_auto
-    assert cfg.policy("safety").target_precision == 0.99
+    assert cfg.queue_settings("safety").never_auto
+    assert cfg.queue_settings("safety").target_precision == 0.99
     assert cfg.target_precision == 0.95
     assert cfg.schema.field("subject").weight == 2.0
 

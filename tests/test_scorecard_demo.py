@@ -103,14 +103,14 @@ def test_kfold_scorecard_covers_all_items_and_equals_sklearn(demo) -> None:
         meas = ws.evaluate(split="kfold", folds=5)
         n_labelled = ws.store.count_items(labelled=True)
     card = meas.scorecard
-    assert card.n == n_labelled == len(meas.holdout_labels) == len(meas.holdout_ids)
-    assert meas.holdout_folds is not None and set(meas.holdout_folds.tolist()) == set(range(5))
+    assert card.n == n_labelled == len(meas.test_labels) == len(meas.test_ids)
+    assert meas.test_folds is not None and set(meas.test_folds.tolist()) == set(range(5))
     verdicts = meas.verdicts()
     queues = card.queues
     suggested = [v.suggested for v in verdicts]
     final = [HELD if v.held else v.suggested for v in verdicts]
-    p, r, f, s = precision_recall_fscore_support(meas.holdout_labels, final, labels=queues, zero_division=0)
-    p_all, r_all, f_all, _ = precision_recall_fscore_support(meas.holdout_labels, suggested, labels=queues,
+    p, r, f, s = precision_recall_fscore_support(meas.test_labels, final, labels=queues, zero_division=0)
+    p_all, r_all, f_all, _ = precision_recall_fscore_support(meas.test_labels, suggested, labels=queues,
                                                              zero_division=0)
     for i, q in enumerate(card.per_queue):
         assert q.queue == queues[i]

@@ -156,10 +156,10 @@ def test_a_correction_to_a_new_queue(ws: Workspace) -> None:
 def test_scorecard_equals_sklearn_on_the_held_out_rows(trained: tuple[Path, object]) -> None:
     meas = trained[1]
     card = meas.scorecard
-    assert meas.holdout_probs is not None and len(meas.holdout_labels) == card.n == round(N_ROWS * 0.2)
+    assert meas.test_probs is not None and len(meas.test_labels) == card.n == round(N_ROWS * 0.2)
     queues = card.queues
-    y_true = list(meas.holdout_labels)
-    top = [meas.model_queues[i] for i in np.argmax(meas.holdout_probs, axis=1)]
+    y_true = list(meas.test_labels)
+    top = [meas.model_queues[i] for i in np.argmax(meas.test_probs, axis=1)]
     assert np.array_equal(np.array(card.matrix), confusion_matrix(y_true, top, labels=queues))
     assert card.accuracy == pytest.approx(np.mean(np.array(y_true) == np.array(top)), abs=1e-12)
     p, r, f, s = precision_recall_fscore_support(y_true, top, labels=queues, zero_division=0)
@@ -169,7 +169,7 @@ def test_scorecard_equals_sklearn_on_the_held_out_rows(trained: tuple[Path, obje
         assert q.support == s[i]
 
     # at the cutoffs: an item held for review counts as predicting no queue
-    verdicts = decide(meas.holdout_probs, meas.model_queues, meas.policy, meas.holdout_hits)
+    verdicts = decide(meas.test_probs, meas.model_queues, meas.policy, meas.test_hits)
     routed = np.array([not v.held for v in verdicts])
     assert [v.suggested for v in verdicts] == top
     y_auto = [t if ok else HELD for t, ok in zip(top, routed, strict=True)]

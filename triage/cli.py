@@ -344,7 +344,7 @@ def cmd_route(args: argparse.Namespace) -> int:
         else:
             render_decisions(decisions)
             n_held = sum(d["held"] for d in decisions)
-            out.print(f"Batch {batch}: {len(decisions) - n_held} auto-routed, {n_held} held for review. "
+            out.print(f"Run {batch}: {len(decisions) - n_held} auto-routed, {n_held} held for review. "
                       "`triage explain ID` shows why.")
     return 0
 
@@ -565,11 +565,11 @@ def cmd_demo(args: argparse.Namespace) -> int:
     render_scorecard(result["scorecard"])
     render_decisions(result["decisions"], limit=15)
     b = result["batch"]
-    out.print(f"Incoming batch: {b['routed']} of {b['n']} auto-routed, {b['held']} held for review; unseen-word "
+    out.print(f"Incoming run: {b['routed']} of {b['n']} auto-routed, {b['held']} held for review; unseen-word "
               f"share {_pct(b['unseen_word_share'])}, queue-mix PSI {b['queue_mix_psi']:.3f}"
               f"{' (drift flagged)' if b['drift_flag'] else ''}.")
     if "accuracy_on_incoming" in result:
-        out.print(f"Against the incoming batch's true queues: {_pct(result['accuracy_on_incoming'])} of top queues "
+        out.print(f"Against the incoming items' true queues: {_pct(result['accuracy_on_incoming'])} of top queues "
                   f"right, {_pct(result['auto_precision_on_incoming'])} of auto-routed items right.")
     out.print(SAFETY_NOTE)
     out.print(f"Next: triage explain {result['decisions'][0]['id']} -w {result['workspace']}   |   "
@@ -665,7 +665,7 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("queue", help="the queue")
     sp.add_argument("value", help="a confidence between 0 and 1, or none to auto-route nothing")
     sp.add_argument("--by", default="operator", help="who set it")
-    add("overview", cmd_overview, "items, queues, the active model and the latest batch, in one view")
+    add("overview", cmd_overview, "items, queues, the active model and the latest routing run, in one view")
     sp = add("tune", cmd_tune, "compare model settings by cross-validation, side by side; --adopt the best")
     sp.add_argument("--folds", type=int, default=5, help="cross-validation folds (default 5)")
     sp.add_argument("--top", type=int, default=15, help="rows to show (default 15)")

@@ -54,12 +54,12 @@ class ModelSettings:
 
 
 @dataclass
-class QueuePolicy:
+class QueueSettings:
     """Routing rules for one queue."""
 
     target_precision: float = DEFAULT_TARGET_PRECISION
     never_auto: bool = False  # every item predicted here is held for a human, whatever the confidence
-    cutoff: float | None = None  # a fixed cutoff; None means: solved from held-out precision
+    cutoff: float | None = None  # a fixed cutoff; None means: solved from out-of-fold precision
     # words (prefixes, e.g. "burn" for burning/burnt) that hold any item mentioning them for a person,
     # whatever the model says: a rule-based safeguard for never-auto queues. An entry of several words
     # ("carbon monoxide", "self-harm") matches an item that has every one of them.
@@ -72,7 +72,7 @@ class Config:
 
     schema: Schema
     model: ModelSettings = field(default_factory=ModelSettings)
-    queues: dict[str, QueuePolicy] = field(default_factory=dict)
+    queues: dict[str, QueueSettings] = field(default_factory=dict)
     target_precision: float = DEFAULT_TARGET_PRECISION
     max_text_chars: int = 20_000
     # hold any item that gives a never-auto queue at least this probability, whatever its top queue
@@ -91,11 +91,11 @@ class Config:
         item about something else is what a text model misses."""
         return sorted(q for q, p in self.queues.items() if p.never_auto and not p.watch_words)
 
-    def policy(self, queue: str) -> QueuePolicy:
+    def queue_settings(self, queue: str) -> QueueSettings:
         """The queue's routing rules; queues not named in the file get the defaults."""
         if queue in self.queues:
             return self.queues[queue]
-        return QueuePolicy(target_precision=self.target_precision)
+        return QueueSettings(target_precision=self.target_precision)
 
 
 def _fail(path: Path | str, key: str, why: str) -> ConfigError:
@@ -260,7 +260,7 @@ def config_from_dict(data: dict[str, Any], path: Path | str = "triage.toml", tex
                      lo=0, hi=1, lo_open=True)
     watch = _number(path, "routing.watch_probability", routing.get("watch_probability", 0.10), lo=0, hi=1,
                     lo_open=True)
-    queues: dict[str, QueuePolicy] = {}
+    queues: dict[str, QueueSettings] = {}
     queues_raw = data.get("queues", {})
     if not isinstance(queues_raw, dict):
         raise _fail(path, "queues", "must hold one table per queue, [queues.NAME]")
@@ -275,7 +275,7 @@ def config_from_dict(data: dict[str, Any], path: Path | str = "triage.toml", tex
         words = q.get("watch_words", [])
         if not isinstance(words, list) or not all(isinstance(w, str) and w.strip() for w in words):
             raise _fail(path, f"{key}.watch_words", "must be a list of non-empty words")
-        queues[qname] = QueuePolicy(
+        queues[qname] = QueueSettings(
             target_precision=_number(path, f"{key}.target_precision", q.get("target_precision", target),
                                      lo=0, hi=1, lo_open=True),
             never_auto=_flag(path, f"{key}.never_auto", q.get("never_auto", False)),

@@ -15,7 +15,7 @@ from typing import Any
 
 import pandas as pd
 
-from triage.config import Config, QueuePolicy
+from triage.config import Config, QueueSettings
 from triage.core.schema import FieldRole, FieldSpec, Schema
 from triage.ingest import IngestError, read_raw_sample
 
@@ -265,7 +265,7 @@ def infer_config(
             + "; ".join(f"{c}: {r}" for c, r in reasons.items())
         )
 
-    queues: dict[str, QueuePolicy] = {}
+    queues: dict[str, QueueSettings] = {}
     text_cols = [f.name for f in specs if f.role is FieldRole.TEXT]
     texts = [" ".join(frame[c].iat[i] for c in text_cols) for i in range(n)]
     labels = list(frame[label_col])
@@ -273,7 +273,7 @@ def infer_config(
         norm = re.sub(r"[^a-z0-9]+", "_", q.lower())
         hit = next((w for w in SAFETY_WORDS if w in norm), None)
         if hit:
-            queues[q] = QueuePolicy(target_precision=SAFETY_PRECISION, never_auto=True)
+            queues[q] = QueueSettings(target_precision=SAFETY_PRECISION, never_auto=True)
             reasons[f"queues.{q}"] = (
                 f"queue {q!r} sounds like {hit.replace('_', '-')}: never auto-routed, "
                 f"target precision {SAFETY_PRECISION}"

@@ -43,8 +43,8 @@ def test_scorecard_shows_reliability_on_the_newest_items(workspace_path: Path) -
         hold = sv.meas.calibration["holdout"]
         box = app.query_one("#score-reliability", Static)
         text = text_of(box)
-        # the held-out figures, not the ones on the calibration items themselves
-        assert f"{sv.card.n} items, the newest, held out" in text
+        # the test items' figures, not the ones on the calibration items themselves
+        assert f"{sv.card.n} items, the newest, not trained on" in text
         assert sum(b["n"] for b in hold["reliability"]) == sv.card.n
         assert f"ECE before {hold['ece_before']:.3f} → after {hold['ece_after']:.3f}" in text
         assert f"temperature only {hold['ece_temperature']:.3f}" in text

@@ -1,4 +1,4 @@
-"""The demo: a workspace built from one of the invented scenarios, trained, measured and routing a new batch.
+"""The demo: a workspace built from one of the invented scenarios, trained, measured and routing new items.
 
 The scenario files ship inside the package (`triage.demo_corpus`, the repository's demo_corpus/ folder) with
 their example configs (`triage.example_configs`, the repository's configs/ folder).
@@ -37,7 +37,7 @@ def _truth(path: Path) -> pd.DataFrame:
 
 def build_demo(root: Path, scenario: str = "voltwren", *, progress: Progress | None = None,
                force: bool = False) -> dict[str, Any]:
-    """Create the workspace, import the history, train, route the incoming batch; returns what happened."""
+    """Create the workspace, import the history, train, route the incoming items; returns what happened."""
     if scenario not in SCENARIO_FILES:
         raise BadInput(f"unknown scenario {scenario!r}; choose one of {', '.join(SCENARIO_FILES)}")
     say = progress or (lambda _s, _f: None)
@@ -60,7 +60,7 @@ def build_demo(root: Path, scenario: str = "voltwren", *, progress: Progress | N
         say("importing the history", 0.02)
         rep = ws.import_file(data_dir / history)
         report = ws.train(progress=lambda s, f: say(s, 0.05 + 0.85 * f))
-        say("routing the incoming batch", 0.92)
+        say("routing the incoming items", 0.92)
         decisions, _, batch_id = ws.route_file(data_dir / incoming)
         batch = ws.store.latest_batch()
     result: dict[str, Any] = {

@@ -59,8 +59,8 @@ def spec_from_config(config: Config, **overrides: Any) -> ModelSpec:
 
 def cutoff_rules(config: Config, queues: Sequence[str]) -> CutoffRules:
     """The config's cutoff rules for these queues, as the plain values the core fits with."""
-    pinned = {q: config.policy(q).cutoff for q in queues}
-    return CutoffRules(targets={q: config.policy(q).target_precision for q in queues},
+    pinned = {q: config.queue_settings(q).cutoff for q in queues}
+    return CutoffRules(targets={q: config.queue_settings(q).target_precision for q in queues},
                        pinned={q: c for q, c in pinned.items() if c is not None},
                        never_auto=config.never_auto(), watch_probability=config.watch_probability)
 
@@ -124,12 +124,12 @@ def measure(ws: Workspace, spec: ModelSpec, recs: Sequence[ItemRecord] | None = 
     all_queues = sorted(set(queues) | {r.label for r in newer if r.label})
     card = scorecard([r.label for r in newer], [v.suggested for v in verdicts], scored_confidence(verdicts),
                      all_queues, cutoffs, never_auto=never,
-                     targets={q: ws.config.policy(q).target_precision for q in all_queues})
+                     targets={q: ws.config.queue_settings(q).target_precision for q in all_queues})
     split = {"kind": "time", "train_items": len(older), "test_items": len(newer),
              "test_from": newer[0].arrived_at, "test_to": newer[-1].arrived_at}
     meas = Measurement(spec, policy, card, calibration, cutoff_info, split, [r.item_id for r in newer],
                        [r.label or "" for r in newer], probs, list(model.queues), hits)
-    meas.holdout_jll = test_jll
+    meas.test_jll = test_jll
     return meas
 
 
@@ -189,7 +189,7 @@ def measure_kfold(ws: Workspace, spec: ModelSpec, recs: Sequence[ItemRecord] | N
     never = policies[0].never_auto
     meas.scorecard = scorecard(labels, [v.suggested for v in verdicts], np.where(routed, 1.0, -1.0), queues,
                                shown, never_auto=never,
-                               targets={q: ws.config.policy(q).target_precision for q in queues})
+                               targets={q: ws.config.queue_settings(q).target_precision for q in queues})
     used = [bool(fi["isotonic"]["used"]) for fi in fold_info]
     meas.calibration = {
         "temperature": float(np.median([fi["temperature"] for fi in fold_info])),
@@ -200,7 +200,7 @@ def measure_kfold(ws: Workspace, spec: ModelSpec, recs: Sequence[ItemRecord] | N
         **reliability_figures(raw, probs, np.array([v.confidence for v in verdicts]), y),
     }
     meas.cutoffs = {q: {"cutoff": shown[q], "per_fold": [p.cutoffs.get(q) for p in policies],
-                        "target": ws.config.policy(q).target_precision, "never_auto": q in never}
+                        "target": ws.config.queue_settings(q).target_precision, "never_auto": q in never}
                     for q in queues}
     meas.split = {"kind": "kfold", "folds": k, "train_items": n - n // k, "test_items": n}
     say("done", 1.0)
@@ -313,7 +313,7 @@ def evaluate(ws: Workspace, progress: Progress | None = None, split: str = "time
 
     other = {q: c for q, c in active.policy.cutoffs.items()
              if q in meas.model_queues and not same(c, meas.policy.cutoffs.get(q))}
-    if other and meas.holdout_jll is not None:
+    if other and meas.test_jll is not None:
         # the same test rows decided exactly as routing decides: the active version's calibration too
         meas.active_cutoffs = other
         meas.at_active = meas.score_under(replace(active.policy, cutoffs={**dict(meas.policy.cutoffs), **other}))

@@ -178,13 +178,13 @@ def adopt(ws: Workspace, row: GridRow) -> None:
 
 
 def lift_for(ws: Workspace, queue: str) -> dict[str, Any]:
-    """Lift and cumulative gains by decile of one queue's calibrated probability, on the held-out newest items."""
+    """Lift and cumulative gains by decile of one queue's calibrated probability, on the newest items (the test items)."""
     meas = ws.evaluate()
     if queue not in meas.model_queues:
         raise UnknownQueue(f"queue {queue!r} is not one of the model's queues ({', '.join(meas.model_queues)})")
-    assert meas.holdout_probs is not None
-    scores = meas.holdout_probs[:, meas.model_queues.index(queue)]
-    positive = np.array([lab == queue for lab in meas.holdout_labels])
+    assert meas.test_probs is not None
+    scores = meas.test_probs[:, meas.model_queues.index(queue)]
+    positive = np.array([lab == queue for lab in meas.test_labels])
     return {"queue": queue, "items": len(scores), "positives": int(positive.sum()),
             "deciles": lift_table(scores, positive, 10),
             "captured_top_10": captured_share(scores, positive, 0.10),

@@ -79,7 +79,7 @@ def _labels(y: Any, n: int, q: int) -> np.ndarray:
 
 
 class TemperatureScaler:
-    """p = softmax(jll / T) with one parameter T > 0 fitted by maximum likelihood on held-out items.
+    """p = softmax(jll / T) with one parameter T > 0 fitted by maximum likelihood on items the model was not fitted on.
 
     T > 1 softens an over-confident model, T < 1 sharpens; the ranking of queues is unchanged, so the
     suggested queue never changes, only how sure the model says it is (Guo et al. 2017).
@@ -166,7 +166,7 @@ class IsotonicCalibrator:
         return self.n_items_ >= self.MIN_ITEMS
 
     def fit(self, confidence: np.ndarray, correct: np.ndarray) -> IsotonicCalibrator:
-        """Fit on held-out items; warns (SmallSampleWarning) below MIN_ITEMS."""
+        """Fit on items the model was not fitted on; warns (SmallSampleWarning) below MIN_ITEMS."""
         conf = np.asarray(confidence, dtype=float).ravel()
         ok = np.asarray(correct, dtype=bool).ravel().astype(float)
         if conf.shape != ok.shape:

@@ -127,15 +127,15 @@ class Measurement:
     cutoffs: dict[str, dict[str, Any]]
     split: dict[str, Any]
     # the test rows behind the scorecard, so cutoffs can be moved and lift computed without refitting
-    holdout_ids: list[str] = field(default_factory=list)
-    holdout_labels: list[str] = field(default_factory=list)
-    holdout_probs: np.ndarray | None = None  # (n, len(model_queues)) calibrated probabilities
+    test_ids: list[str] = field(default_factory=list)
+    test_labels: list[str] = field(default_factory=list)
+    test_probs: np.ndarray | None = None  # (n, len(model_queues)) calibrated probabilities
     model_queues: list[str] = field(default_factory=list)
-    holdout_hits: list[list[str]] | None = None  # watch-word hits per test row
+    test_hits: list[list[str]] | None = None  # watch-word hits per test row
     # k-fold split only: the outer fold of each test row, and each fold's own policy (calibration, cutoffs)
-    holdout_folds: np.ndarray | None = None
+    test_folds: np.ndarray | None = None
     fold_policies: list[RoutingPolicy] = field(default_factory=list)
-    holdout_jll: np.ndarray | None = None  # time split: the test rows' joint log-likelihoods, before calibration
+    test_jll: np.ndarray | None = None  # time split: the test rows' joint log-likelihoods, before calibration
     # when routing uses cutoffs other than the solved ones (set by hand): those, and the scorecard at them
     active_cutoffs: dict[str, float | None] | None = None
     at_active: Scorecard | None = None
@@ -143,18 +143,18 @@ class Measurement:
     def verdicts(self, cutoffs: dict[str, float | None] | None = None) -> list[Verdict]:
         """The routing decisions on the test rows (a k-fold row under its own fold's policy); `cutoffs`
         replaces every policy's cutoffs (what-if)."""
-        assert self.holdout_probs is not None
+        assert self.test_probs is not None
 
         def pol(p: RoutingPolicy) -> RoutingPolicy:
             return p if cutoffs is None else replace(p, cutoffs=cutoffs)
 
-        if self.holdout_folds is None:
-            return decide(self.holdout_probs, self.model_queues, pol(self.policy), self.holdout_hits)
-        out: list[Verdict | None] = [None] * len(self.holdout_labels)
+        if self.test_folds is None:
+            return decide(self.test_probs, self.model_queues, pol(self.policy), self.test_hits)
+        out: list[Verdict | None] = [None] * len(self.test_labels)
         for f, p in enumerate(self.fold_policies):
-            rows = np.flatnonzero(self.holdout_folds == f)
-            hits = [self.holdout_hits[i] for i in rows] if self.holdout_hits is not None else None
-            for i, v in zip(rows, decide(self.holdout_probs[rows], self.model_queues, pol(p), hits), strict=True):
+            rows = np.flatnonzero(self.test_folds == f)
+            hits = [self.test_hits[i] for i in rows] if self.test_hits is not None else None
+            for i, v in zip(rows, decide(self.test_probs[rows], self.model_queues, pol(p), hits), strict=True):
                 out[i] = v
         return [v for v in out if v is not None]
 
@@ -164,7 +164,7 @@ class Measurement:
         verdicts = self.verdicts()
         conf = np.array([v.confidence for v in verdicts], dtype=float)
         suggested = np.array([v.suggested for v in verdicts], dtype=object)
-        labels = np.array(self.holdout_labels, dtype=object)
+        labels = np.array(self.test_labels, dtype=object)
         out: dict[str, dict[str, list[float]]] = {}
         for q in self.model_queues:
             mine = suggested == q
@@ -178,7 +178,7 @@ class Measurement:
     def rescore(self, cutoffs: dict[str, float | None]) -> Scorecard:
         """The scorecard of the same test rows under other cutoffs (what-if for the cutoff keys in the UI)."""
         verdicts = self.verdicts(cutoffs)
-        return scorecard(self.holdout_labels, [v.suggested for v in verdicts], scored_confidence(verdicts),
+        return scorecard(self.test_labels, [v.suggested for v in verdicts], scored_confidence(verdicts),
                          self.scorecard.queues, cutoffs,
                          never_auto=self.policy.never_auto,
                          targets={q.queue: q.target for q in self.scorecard.per_queue})
@@ -186,8 +186,8 @@ class Measurement:
     def score_under(self, policy: RoutingPolicy) -> Scorecard:
         """The scorecard of a time-split measurement's test rows decided by another policy (its calibration
         and its cutoffs), as routing under that policy would decide them."""
-        assert self.holdout_jll is not None
-        verdicts = decide(policy.calibrated(self.holdout_jll), self.model_queues, policy, self.holdout_hits)
-        return scorecard(self.holdout_labels, [v.suggested for v in verdicts], scored_confidence(verdicts),
+        assert self.test_jll is not None
+        verdicts = decide(policy.calibrated(self.test_jll), self.model_queues, policy, self.test_hits)
+        return scorecard(self.test_labels, [v.suggested for v in verdicts], scored_confidence(verdicts),
                          self.scorecard.queues, policy.cutoffs, never_auto=policy.never_auto,
                          targets={q.queue: q.target for q in self.scorecard.per_queue})

@@ -2,7 +2,7 @@
 
 The encoder is fitted once on all rows and every fold reuses its sparse matrix; only the count tables are rebuilt
 per fold (a sparse product), which is why a grid of settings costs little more than one fit. The vocabulary
-then includes words that occur only in a fold's held-out rows; they get zero counts in that fold, exactly as an
+then includes words that occur only in a fold's test rows; they get zero counts in that fold, exactly as an
 unseen word would, so no label leaks.
 """
 

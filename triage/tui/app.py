@@ -36,7 +36,7 @@ VIEWS: list[tuple[str, str, type[View], str]] = [
     ("overview", "1 Overview", OverviewView, "items, queues, the active model, drift"),
     ("models", "2 Models", ModelsView, "model versions; train, cancel, activate; the settings grid"),
     ("scorecard", "3 Scorecard", ScorecardView, "confusion matrix, per-queue figures, what-if cutoffs"),
-    ("incoming", "4 Incoming", IncomingView, "the latest batch's decisions and their evidence"),
+    ("incoming", "4 Incoming", IncomingView, "the latest run's decisions and their evidence"),
     ("review", "5 Review", ReviewView, "held items and likely misroutes; send to a queue, undo"),
     ("fields", "6 Fields", FieldsView, "value-by-queue counts and smoothed probabilities"),
 ]
@@ -57,7 +57,7 @@ class TriageCommands(Provider):
             ("Run the settings grid", app.action_grid, "cross-validates every setting; x on Models cancels"),
             ("Save the what-if cutoffs", app.action_save_cutoffs, "as a new model version, after a confirmation"),
             ("Undo the newest correction", app.action_undo, "journaled and learned like any correction"),
-            ("Re-score the held-out items", app.action_rescore, "scorecard with the current labels"),
+            ("Re-score the test items", app.action_rescore, "scorecard with the current labels"),
             ("Key list", app.action_help, "every key of every view"),
         ]
         return out

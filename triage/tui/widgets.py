@@ -166,7 +166,7 @@ def text_plot(xs: Sequence[float], ys: Sequence[float], mark: tuple[float, float
               width: int = 40, height: int = 8, x_label: str = "coverage", y_label: str = "precision") -> Text:
     """A small scatter of (x, y) in [0, 1] x [y_min, 1] with '•' points and the current setting as '◆'."""
     if not xs:
-        return Text("(no items suggested for this queue in the held-out set)", style="dim")
+        return Text("(no test items suggested for this queue)", style="dim")
     y_min = min(min(ys), mark[1] if mark else 1.0)
     y_min = max(0.0, math.floor(y_min * 10) / 10)
     if y_min >= 1.0:

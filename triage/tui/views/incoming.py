@@ -1,4 +1,4 @@
-"""View 4, Incoming: the latest batch's decisions a page at a time, filtered by queue, held and text."""
+"""View 4, Incoming: the latest run's decisions a page at a time, filtered by queue, held and text."""
 
 from __future__ import annotations
 
@@ -23,7 +23,7 @@ PAGE_ROWS = 200
 
 
 class IncomingView(View):
-    """The latest batch's decisions, a page at a time, filtered by queue, held and text."""
+    """The latest run's decisions, a page at a time, filtered by queue, held and text."""
 
     main_id = "incoming-table"
     BINDINGS = [
@@ -97,10 +97,10 @@ class IncomingView(View):
                       r.runner_up or "", r.queue or "—", key=r.item_id)
         status = self.query_one("#incoming-status", Label)
         if self.batch_id is None:
-            status.update("nothing routed yet: `triage route FILE` routes a batch")
+            status.update("nothing routed yet: `triage route FILE` makes a routing run")
         else:
             end = min(start + PAGE_ROWS, len(self.rows))
-            status.update(f"batch #{self.batch_id}: {len(self.rows)} decisions match · rows {start + 1 if self.rows else 0}"
+            status.update(f"run #{self.batch_id}: {len(self.rows)} decisions match · rows {start + 1 if self.rows else 0}"
                           f"–{end} · page {self.page + 1}/{self.pages} (n/p)")
         if t.row_count:
             t.move_cursor(row=0)

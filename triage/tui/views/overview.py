@@ -1,4 +1,4 @@
-"""View 1, Overview: items, queues, the active model, the latest batch and its drift figures."""
+"""View 1, Overview: items, queues, the active model, the latest routing run and its drift figures."""
 
 from __future__ import annotations
 
@@ -50,7 +50,7 @@ class OverviewView(View):
         m.add_row("accuracy", pct(card.get("accuracy")))
         m.add_row("coverage", pct(card.get("coverage")))
         m.add_row("auto precision", pct(card.get("auto_precision")))
-        m.add_row("scored on", f"{card.get('n', '—')} newest, held out")
+        m.add_row("scored on", f"{card.get('n', '—')} newest, not trained on")
         m.add_row("corrections", f"{o['corrections_since_training']} learned since training")
         self.query_one("#overview-model", Static).update(Group(Text("model", style="bold underline"), m))
         b = Table.grid(padding=(0, 2))
@@ -58,7 +58,7 @@ class OverviewView(View):
         b.add_column(style="bold")
         batch = o["latest_batch"]
         if batch:
-            b.add_row("batch", f"#{batch['id']} {Path(batch['source']).name}")
+            b.add_row("run", f"#{batch['id']} {Path(batch['source']).name}")
             b.add_row("routed / held", f"{batch['routed']} / {batch['held']}  (coverage {pct(batch['coverage'])})")
             unseen = batch["unseen_word_share"]
             b.add_row("unseen words", Text(f"{pct(unseen)}" + ("  ! many new words" if unseen > 0.1 else "  ok"),
@@ -68,15 +68,15 @@ class OverviewView(View):
             b.add_row("queue-mix PSI", Text(f"{psi:.3f}" + ("  ! the queue mix moved" if flag else "  ok"),
                                             style="bold red" if flag else ""))
         else:
-            b.add_row("batch", "nothing routed yet (triage route FILE)")
-        self.query_one("#overview-batch", Static).update(Group(Text("latest batch", style="bold underline"), b))
+            b.add_row("run", "nothing routed yet (triage route FILE)")
+        self.query_one("#overview-batch", Static).update(Group(Text("latest run", style="bold underline"), b))
         q = Table(title="queues (labelled items)", title_justify="left", show_edge=False, box=None,
                   padding=(0, 1))
         q.add_column("queue", no_wrap=True)
         q.add_column("items", justify="right")
         q.add_column("share", justify="right")
         q.add_column("", no_wrap=True)
-        q.add_column("latest batch", justify="right")
+        q.add_column("latest run", justify="right")
         total = sum(o["queues"].values()) or 1
         top = max(o["queues"].values(), default=1)
         per_batch = batch["per_queue"] if batch else {}

@@ -35,7 +35,7 @@ def cutoff_text(c: float | None) -> str:
 
 class ScorecardView(View):
     """The workspace's own measurement (`Workspace.evaluate`, what `triage evaluate` prints): confusion matrix,
-    per-queue figures, what-if cutoffs re-scored on the same held-out items (`Measurement.rescore`), a
+    per-queue figures, what-if cutoffs re-scored on the same test items (`Measurement.rescore`), a
     precision/coverage plot, and saving the what-if cutoffs as a new model version."""
 
     main_id = "queue-table"
@@ -48,7 +48,7 @@ class ScorecardView(View):
                 tooltip="Save the what-if cutoffs as a new model version (asks first)"),
         Binding("r", "reset", "Reset", id="score.reset", tooltip="Back to the active model's cutoffs"),
         Binding("e", "remeasure", "Re-score", id="score.remeasure",
-                tooltip="Score the held-out items again with the current labels"),
+                tooltip="Score the test items again with the current labels"),
         Binding("c", "toggle_reliability", "Raw/calib.", id="score.reliability", show=False,
                 tooltip="Reliability chart: calibrated confidence or raw posterior (scrolls to it)"),
     ]
@@ -125,7 +125,7 @@ class ScorecardView(View):
 
     def rescore(self) -> None:
         """The figures at the cutoffs on screen: the measurement's own scorecard at its own cutoffs (exactly what
-        `triage evaluate` prints), else the same held-out rows re-scored."""
+        `triage evaluate` prints), else the same test rows re-scored."""
         assert self.meas is not None
         own = {q: self.meas.policy.cutoff(q) for q in self.meas.scorecard.queues}
         self.card = self.meas.scorecard if self.cutoffs == own else self.meas.rescore(dict(self.cutoffs))
@@ -138,7 +138,7 @@ class ScorecardView(View):
             self.show()
 
     def action_remeasure(self) -> None:
-        self.notify("scoring the held-out items again…")
+        self.notify("scoring the test items again…")
         self.measuring = True
         self.measure()
         self.show()
@@ -152,7 +152,7 @@ class ScorecardView(View):
     def action_nudge(self, sign: int) -> None:
         q = self.selected_queue()
         if q is None or self.meas is None:
-            self.notify("the held-out items are still being scored")
+            self.notify("the test items are still being scored")
             return
         if q in self.meas.policy.never_auto:
             self.notify(f"{q} is never auto-routed: a person reviews every item, whatever the cutoff")
@@ -179,7 +179,7 @@ class ScorecardView(View):
 
     def action_save_cutoffs(self) -> None:
         if self.meas is None:
-            self.notify("the held-out items are still being scored")
+            self.notify("the test items are still being scored")
             return
         changed = self.changed
         if not changed:
@@ -188,7 +188,7 @@ class ScorecardView(View):
         now, after = self.meas.rescore(dict(self.saved)), self.card
         lines = "\n".join(f"  {q}: {cutoff_text(self.saved.get(q))} -> {cutoff_text(c)}"
                           for q, c in sorted(changed.items()))
-        figures = (f"\nOn the held-out items: coverage {pct(now.coverage)} -> {pct(after.coverage)}, auto "
+        figures = (f"\nOn the test items: coverage {pct(now.coverage)} -> {pct(after.coverage)}, auto "
                    f"precision {pct(now.auto_precision)} -> {pct(after.auto_precision)}." if after is not None else "")
         version = self.measured_for
 
@@ -220,7 +220,7 @@ class ScorecardView(View):
             summary.update("no scorecard yet: train a model (2, then t)")
             return
         s = Text()
-        s.append(f"held-out items {card.n}   accuracy {pct(card.accuracy)}   coverage {pct(card.coverage)}   "
+        s.append(f"test items {card.n}   accuracy {pct(card.accuracy)}   coverage {pct(card.coverage)}   "
                  f"auto precision {pct(card.auto_precision)}   macro F1 {num(card.macro_f1)}", style="bold")
         if self.meas is None:
             s.append("   (stored figures; scoring each item…)", style="dim")
@@ -260,14 +260,14 @@ class ScorecardView(View):
             return None
         cal = self.meas.calibration
         if isinstance(cal.get("holdout"), dict):
-            return cal["holdout"], "the newest, held out"
+            return cal["holdout"], "the newest, not trained on"
         return cal, "out-of-fold decisions"
 
     def show_reliability(self) -> None:
         box = self.query_one("#score-reliability", Static)
         got = self.reliability_figures()
         if got is None:
-            box.update(Text("reliability: waiting for the held-out scores", style="dim"))
+            box.update(Text("reliability: waiting for the test scores", style="dim"))
             return
         figs, where = got
         bins = figs.get("reliability_before" if self.raw_reliability else "reliability") or []
@@ -295,7 +295,7 @@ class ScorecardView(View):
         q = self.selected_queue()
         plot = self.query_one("#score-plot", Static)
         if q is None or self.meas is None or self.card is None:
-            plot.update(Text("precision vs coverage: waiting for the held-out scores", style="dim"))
+            plot.update(Text("precision vs coverage: waiting for the test scores", style="dim"))
             return
         curve = self.curves.get(q, {"precision": [], "coverage": []})
         qs = next((s for s in self.card.per_queue if s.queue == q), None)
