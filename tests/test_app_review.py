@@ -11,7 +11,7 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
-from tests.helpers import ROOT, build_demo_workspace
+from tests.helpers import ROOT
 from triage.app import HeldBy, Workspace
 from triage.app.review import MISROUTE_CONFIDENCE, ReviewReason, field_table, incoming, worklist
 
@@ -19,9 +19,10 @@ INCOMING = 300
 
 
 @pytest.fixture(scope="module")
-def routed(tmp_path_factory: pytest.TempPathFactory) -> Path:
+def routed(demo_1200: Path, tmp_path_factory: pytest.TempPathFactory) -> Path:
     """A trained workspace (1,200 demo tickets) with one stored run of 300 incoming items."""
-    root = build_demo_workspace(tmp_path_factory.mktemp("review") / "ws", rows=1200)
+    root = tmp_path_factory.mktemp("review") / "ws"
+    shutil.copytree(demo_1200, root)
     pd.read_csv(ROOT / "demo_corpus" / "voltwren_incoming.csv").head(INCOMING).to_csv(root / "in.csv", index=False)
     with Workspace.open(root) as ws:
         ws.route_file(root / "in.csv")

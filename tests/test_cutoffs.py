@@ -6,15 +6,15 @@ from pathlib import Path
 
 import pytest
 
-from tests.helpers import build_demo_workspace, copy_workspace
+from tests.helpers import copy_workspace
 from triage.app import Workspace, WorkspaceError
 
 ROOT = Path(__file__).resolve().parents[1]
 
 
-@pytest.fixture(scope="module")
-def trained(tmp_path_factory: pytest.TempPathFactory) -> Path:
-    return build_demo_workspace(tmp_path_factory.mktemp("cutoffs") / "ws", rows=1200)
+@pytest.fixture
+def trained(demo_1200: Path) -> Path:
+    return demo_1200  # the shared session workspace: every test here copies it before changing it
 
 
 def test_a_hand_set_cutoff_routes_at_once_and_survives_a_restart(trained: Path, tmp_path: Path) -> None:
