@@ -57,19 +57,28 @@ def artifact_name(fingerprint: str, suffix: str = "") -> str:
     return f"{MODELS_DIR}/m{int(time.time() * 1000):x}-{fingerprint[:8]}{suffix}"
 
 
-def commit_version(ws: Workspace, parent: int | None, kind: str, config: dict[str, Any], fingerprint: str,
-                   artifact: str, *, scorecard: dict[str, Any] | None, note: str,
+# commit_version's parent for a version that replaces whatever is active (a training run)
+ON_CURRENT = object()
+
+
+def commit_version(ws: Workspace, parent: int | None | object, kind: str, config: dict[str, Any],
+                   fingerprint: str, artifact: str, *, scorecard: dict[str, Any] | None, note: str,
                    inside: Callable[[], None] | None = None,
                    after: Callable[[ModelVersion], None] | None = None) -> ModelVersion:
     """The one way a new model version is recorded: inside one write transaction, the version it is built on
-    (`parent`) must still be the active one (else `StaleVersion`); `inside` runs first in the same transaction
-    (more checks), `after` once the version exists (journal bookkeeping)."""
+    (`parent`) must still be the active one (else `StaleVersion`; `ON_CURRENT` builds on whichever is active);
+    `inside` runs first in the same transaction (more checks, or completing `config`), `after` once the
+    version exists (journal bookkeeping)."""
     with ws.store.transaction():
         current = ws.store.active_model()
-        if (current.version if current else None) != parent:
+        active_now = current.version if current else None
+        if parent is ON_CURRENT:
+            parent = active_now
+        elif active_now != parent:
             raise StaleVersion
         if inside is not None:
             inside()
+        assert parent is None or isinstance(parent, int)
         mv = ws.store.add_model_version(parent, kind, config, fingerprint, artifact, scorecard=scorecard, note=note)
         if after is not None:
             after(mv)

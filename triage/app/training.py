@@ -11,7 +11,14 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from triage.app.active import ActiveModel, artifact_name, learn_correction, require_model
+from triage.app.active import (
+    ON_CURRENT,
+    ActiveModel,
+    artifact_name,
+    commit_version,
+    learn_correction,
+    require_model,
+)
 from triage.app.decisions import TrainReport
 from triage.app.errors import BadInput, Cancelled
 from triage.app.routing import watch_word_hits
@@ -279,17 +286,16 @@ def save_trained(ws: Workspace, model: NaiveBayes, recs: Sequence[ItemRecord], m
                   "corrections": [], "split": meas.split, "calibration": {
                       k: v for k, v in meas.calibration.items() if k != "reliability"}}
         fresh = ActiveModel(None, model, meas.policy, dict(zip(ids, labels, strict=True)), name, [])  # type: ignore[arg-type]
-        # the journal is read and the version added under one write lock: no correction slips in between
-        with ws.store.transaction():
+        def learn_newer() -> None:
+            """The journal is read and the version added under one write lock: no correction slips in between."""
             if corrections_after is not None:
                 for c in ws.store.corrections():
                     if c.id > corrections_after and c.status != "pending":
                         learn_correction(ws, fresh, c)
             config["corrections"] = list(fresh.corrections)
-            current = ws.store.active_model()
-            parent = current.version if current else None
-            mv = ws.store.add_model_version(parent, kind, config, fp, name,
-                                            scorecard=meas.scorecard.to_dict(), note=note)
+
+        mv = commit_version(ws, ON_CURRENT, kind, config, fp, name, scorecard=meas.scorecard.to_dict(), note=note,
+                            inside=learn_newer)
         fresh.version = mv
         ws._active = fresh
     return mv
