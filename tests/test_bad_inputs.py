@@ -380,3 +380,68 @@ def test_the_table_holds_at_least_40_bad_inputs() -> None:
 
 
 
+
+
+# ---------------------------------------------------------------------------------------------- routing
+def incoming() -> list[dict[str, str]]:
+    rows = [dict(r) for r in ROWS[BASE_ROWS + 200: BASE_ROWS + 210]]
+    for r in rows:
+        r.pop("queue")
+    return rows
+
+
+def route_lines(out: str) -> tuple[list[dict], list[dict]]:
+    lines = [json.loads(x) for x in out.splitlines() if x.strip()]
+    return [x for x in lines if "error" not in x], [x for x in lines if "error" in x]
+
+
+def _dup_in_file() -> tuple[str, int, str]:
+    rows = incoming()
+    rows[6]["ticket_id"] = rows[2]["ticket_id"]
+    return csv_text(rows, [c for c in COLUMNS if c != "queue"]), 7, "duplicate of row 3"
+
+
+def _ragged_in_file() -> tuple[str, int, str]:
+    rows = incoming()
+    text = csv_text(rows, [c for c in COLUMNS if c != "queue"]).splitlines()
+    text[4] += ",extra"
+    return "\n".join(text) + "\n", 4, "expected 10 fields, found 11"
+
+
+def _number_in_file() -> tuple[str, int, str]:
+    rows = incoming()
+    rows[0]["open_orders"] = "several"
+    return csv_text(rows, [c for c in COLUMNS if c != "queue"]), 1, "'several' is not a number"
+
+
+ROUTE_CASES = [("duplicate-id-in-one-batch", _dup_in_file), ("ragged-row", _ragged_in_file),
+               ("number-is-text", _number_in_file)]
+
+
+@pytest.mark.parametrize("case", ROUTE_CASES, ids=[c[0] for c in ROUTE_CASES])
+def test_bad_route_file(case: tuple[str, Callable[[], tuple[str, int, str]]], ws: Path, tmp_path: Path,
+                        capsys: pytest.CaptureFixture[str]) -> None:
+    text, bad_row, words = case[1]()
+    src = tmp_path / "incoming.csv"
+    src.write_text(text, encoding="utf-8")
+    rc, out, err = run(capsys, "route", src, "-w", ws, "--json")
+    assert rc == 1, err  # one row got an error record instead of a decision
+    decisions, errors = route_lines(out)
+    assert len(decisions) + len(errors) == 10  # every input row has a line
+    (e,) = errors
+    assert e["row"] == bad_row and words in e["error"]
+    assert_base_kept(ws)
+
+
+def test_route_stdin_gives_a_repeated_id_an_error_record(ws: Path, capsys: pytest.CaptureFixture[str],
+                                                        monkeypatch: pytest.MonkeyPatch) -> None:
+    rows = incoming()[:4]
+    lines = [json.dumps(r) for r in rows] + [json.dumps({**rows[1], "subject": "something else"})]
+    monkeypatch.setattr("sys.stdin", io.StringIO("\n".join(lines) + "\n"))
+    rc, out, err = run(capsys, "route", "-", "-w", ws, "--json")
+    assert rc == 1, err
+    decisions, errors = route_lines(out)
+    assert [d["id"] for d in decisions] == [r["ticket_id"] for r in rows]
+    (e,) = errors
+    assert (e["row"], e["id"]) == (5, rows[1]["ticket_id"]) and "duplicate of row 2" in e["error"]
+    assert_base_kept(ws)

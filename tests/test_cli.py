@@ -229,9 +229,12 @@ def test_route_stdin_and_a_bad_line_does_not_stop_the_rest(ws: Path, incoming: l
     bad_number = json.dumps({**incoming[3], "tenure_days": "a while"})
     lines = [good[0], "{not json", good[1], bad_number, good[2]]
     p = run("route", "-", "-w", ws, stdin="\n".join(lines) + "\n")
-    assert p.returncode == 0, p.stderr
-    assert [d["id"] for d in jsonl(p.stdout)] == [r["ticket_id"] for r in incoming[:3]]
-    assert "row 2" in p.stderr and "row 4" in p.stderr and "tenure_days" in p.stderr
+    assert p.returncode == 1, p.stderr  # some rows got no decision
+    out = jsonl(p.stdout)
+    assert [d["id"] for d in out if "error" not in d] == [r["ticket_id"] for r in incoming[:3]]
+    errors = [d for d in out if "error" in d]
+    assert [(e["row"], e["field"]) for e in errors] == [(2, None), (4, "tenure_days")]
+    assert "row 4, field 'tenure_days'" in errors[1]["error"] and errors[1]["id"] == incoming[3]["ticket_id"]
 
 
 class Lines:

@@ -317,36 +317,96 @@ def render_calibration(c: dict[str, Any], console: Console = out) -> None:
         console.print(f"On the scored items (not used for calibration): {steps}.")
 
 
+def _error_record(source: str, r: Any, id_field: str) -> dict[str, Any]:
+    """The output line of an input row that got no decision: which row, which field, why."""
+    raw = r.raw if isinstance(r.raw, dict) else {}
+    item_id = raw.get(id_field)
+    return {"error": describe_reject(source, r), "row": r.row, "line": r.line, "field": r.field,
+            "id": None if item_id in (None, "") else str(item_id)}
+
+
+def _clash_record(source: str, item_id: str) -> dict[str, Any]:
+    return {"error": f"{source}: item {item_id!r} not routed: already stored with other field values (a reopened "
+            "or changed item; give it a new id)", "row": None, "line": None, "field": "id", "id": item_id}
+
+
 def cmd_route(args: argparse.Namespace) -> int:
+    """Every input row gets a line: a decision, or an error record saying why not (exit code 1 then)."""
     with _ws(args) as ws:
         if args.follow:
             return _follow(ws, args)
+        id_field = ws.config.schema.id
         if args.file == "-":
             from triage.app import read_jsonl_stream
 
-            records, rejects = [], []
-            for r in read_jsonl_stream(sys.stdin, ws.config.schema, max_text_chars=ws.config.max_text_chars):
-                (rejects if not hasattr(r, "item_id") else records).append(r)
-            for rj in rejects:
-                err.print(describe_reject("<stdin>", rj), markup=False, soft_wrap=True)
+            records, rejects, line_of = [], [], []
+            counted = _Counted(sys.stdin)
+            for r in read_jsonl_stream(counted, ws.config.schema, max_text_chars=ws.config.max_text_chars):
+                if hasattr(r, "item_id"):
+                    records.append(r)
+                    line_of.append(counted.n)  # the stream is lazy: the line just read is this item's
+                else:
+                    rejects.append(r)
+            records, dupes = _first_of_each_id(records, line_of, id_field)
+            errors = [_error_record("<stdin>", rj, id_field) for rj in [*rejects, *dupes]]
             clash = ws.stored_with_other_fields(records)
-            for item_id in sorted(clash):
-                err.print(f"<stdin>: item {item_id!r} not routed: already stored with other field values "
-                          "(give a changed item a new id)", markup=False, soft_wrap=True)
+            errors += [_clash_record("<stdin>", item_id) for item_id in sorted(clash)]
             decisions, batch = ws.route_records([r for r in records if r.item_id not in clash], source="<stdin>")
         else:
             decisions, result, batch = ws.route_file(args.file)
+            src = Path(args.file).name
+            errors = [_error_record(src, rj, id_field) for rj in result.rejects]
+            decided = {d["id"] for d in decisions}
+            errors += [_clash_record(src, r.item_id) for r in getattr(result, "not_routed", [])
+                       if r.item_id not in decided]
             for w in result.warnings[:25]:
                 err.print(f"warning: {w}", markup=False, soft_wrap=True)
         if args.json or not sys.stdout.isatty():
             for d in decisions:
                 sys.stdout.write(json.dumps(d, ensure_ascii=False) + "\n")
+            for e in errors:
+                sys.stdout.write(json.dumps(e, ensure_ascii=False) + "\n")
         else:
             render_decisions(decisions)
+            for e in errors:
+                err.print(f"not routed: {e['error']}", markup=False, soft_wrap=True)
             n_held = sum(d["held"] for d in decisions)
-            out.print(f"Run {batch}: {len(decisions) - n_held} auto-routed, {n_held} held for review. "
-                      "`triage explain ID` shows why.")
-    return 0
+            out.print(f"Run {batch}: {len(decisions) - n_held} auto-routed, {n_held} held for review"
+                      f"{f', {len(errors)} not routed (see above)' if errors else ''}. `triage explain ID` shows why.")
+    return 1 if errors else 0
+
+
+class _Counted:
+    """Lines of a stream, counted as they are read."""
+
+    def __init__(self, lines: Any) -> None:
+        self.lines = iter(lines)
+        self.n = 0
+
+    def __iter__(self) -> _Counted:
+        return self
+
+    def __next__(self) -> str:
+        line = next(self.lines)
+        self.n += 1
+        return line
+
+
+def _first_of_each_id(records: list[Any], line_of: list[int], id_field: str) -> tuple[list[Any], list[Any]]:
+    """A second item with an id seen earlier in the same input is not decided: it gets an error record, as a
+    file's second row with one id does."""
+    from triage.ingest import Reject
+
+    seen: dict[str, int] = {}
+    keep, dupes = [], []
+    for r, line in zip(records, line_of, strict=True):
+        if r.item_id in seen:
+            dupes.append(Reject(row=line, field=id_field, reason=f"duplicate of row {seen[r.item_id]}",
+                                raw={id_field: r.item_id}))
+            continue
+        seen[r.item_id] = line
+        keep.append(r)
+    return keep, dupes
 
 
 def _follow(ws: Workspace, args: argparse.Namespace) -> int:
