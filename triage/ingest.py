@@ -71,6 +71,15 @@ class IngestResult:
     rejects_path: Path | None
     # rows whose arrival time could not be read (row, value): imported without a time, counted here
     bad_times: list[tuple[int, str]] = field(default_factory=list)
+    # the row number of each record (parallel to `records`), so a later check can name the row
+    record_rows: list[int] = field(default_factory=list)
+
+    def row_of(self, item_id: str) -> int | None:
+        """The row an item came from, None when it is not among the records."""
+        for rec, row in zip(self.records, self.record_rows, strict=False):
+            if rec.item_id == item_id:
+                return row
+        return None
 
 
 class _BadValue(Exception):
@@ -746,6 +755,7 @@ def read_items(
     checker = _RowChecker(schema, require_label=require_label, max_text_chars=max_text_chars, labels=labels)
     warn = _Warnings()
     records: list[ItemRecord] = []
+    record_rows: list[int] = []
     rejects: list[Reject] = []
     first_row_of: dict[str, int] = {}
     rows_read = 0
@@ -784,6 +794,7 @@ def read_items(
                 )
                 continue
             records.append(result)
+            record_rows.append(row)
     finally:
         close()
 
@@ -827,6 +838,7 @@ def read_items(
         rows_read=rows_read,
         rejects_path=rejects_path,
         bad_times=list(checker.bad_times),
+        record_rows=record_rows,
     )
 
 
