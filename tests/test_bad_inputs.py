@@ -10,6 +10,7 @@ from __future__ import annotations
 import csv
 import io
 import json
+import os
 import shutil
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -19,7 +20,7 @@ import pytest
 
 from tests.helpers import ROOT, build_demo_workspace
 from triage.cli import main
-from triage.store import Store
+from triage.store import Store, StoreError
 
 BASE_ROWS = 400  # items in the trained workspace every case copies
 NEW = slice(BASE_ROWS, BASE_ROWS + 20)  # the good rows each import case writes
@@ -284,6 +285,20 @@ def test_thousands_declared_in_the_config_reads_1200(ws: Path, tmp_path: Path,
     assert stored(ws)[BAD_ID][1]["tenure_days"] == 1200.0
 
 
+def test_labels_table_maps_look_alike_names(ws: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    cfg = ws / "triage.toml"
+    cfg.write_text(cfg.read_text() + '\n[labels]\n"BILLING" = "billing"\n"Billing " = "billing"\n')
+    rows = good()
+    rows[0]["queue"], rows[1]["queue"] = "BILLING", "Billing "
+    src = tmp_path / "m.csv"
+    src.write_text(csv_text(rows), encoding="utf-8")
+    rc, _out, err = run(capsys, "import", src, "-w", ws)
+    assert rc == 0, err
+    now = stored(ws)
+    assert now[rows[0]["ticket_id"]][0] == "billing" and now[rows[1]["ticket_id"]][0] == "billing"
+    assert "differ only" not in err
+
+
 # ---------------------------------------------------------------------------------------------- configs
 CONFIG_CASES = [
     # (id, old text, new text, key words)
@@ -352,6 +367,10 @@ CLI_CASES = [
     (("evaluate", "--split", "kfold", "--folds", "1"), ("at least 2 folds",)),
     (("import", "missing.csv"), ("file not found",)),
     (("import", "notes.txt"), ("unknown file type",)),
+    (("correct", ROWS[0]["ticket_id"], "biling"), ("'biling' is not a known queue", "did you mean 'billing'",
+                                                   "--new-queue")),
+    (("correct", ROWS[0]["ticket_id"], "netwrok"), ("not a known queue", "--new-queue")),
+    (("correct", ROWS[0]["ticket_id"], "not a queue!", "--new-queue"), ("use letters, digits",)),
 ]
 
 
@@ -414,8 +433,15 @@ def _number_in_file() -> tuple[str, int, str]:
     return csv_text(rows, [c for c in COLUMNS if c != "queue"]), 1, "'several' is not a number"
 
 
+def _reopened() -> tuple[str, int, str]:
+    # an id already stored (a base item) with other field values: a reopened ticket
+    rows = incoming()
+    rows[3] = {**{k: v for k, v in ROWS[7].items() if k != "queue"}, "body": "It happened again this week."}
+    return csv_text(rows, [c for c in COLUMNS if c != "queue"]), 4, "already stored with other field values"
+
+
 ROUTE_CASES = [("duplicate-id-in-one-batch", _dup_in_file), ("ragged-row", _ragged_in_file),
-               ("number-is-text", _number_in_file)]
+               ("number-is-text", _number_in_file), ("reopened-ticket", _reopened)]
 
 
 @pytest.mark.parametrize("case", ROUTE_CASES, ids=[c[0] for c in ROUTE_CASES])
@@ -445,3 +471,143 @@ def test_route_stdin_gives_a_repeated_id_an_error_record(ws: Path, capsys: pytes
     (e,) = errors
     assert (e["row"], e["id"]) == (5, rows[1]["ticket_id"]) and "duplicate of row 2" in e["error"]
     assert_base_kept(ws)
+
+
+# ---------------------------------------------------------------------------------------------- workspace state
+def test_rejects_land_in_the_workspace_created_afresh_with_mode_0600(ws: Path, tmp_path: Path,
+                                                                    capsys: pytest.CaptureFixture[str]) -> None:
+    text, _ = with_bad({"tenure_days": "lots"})()
+    src = tmp_path / "in.csv"
+    src.write_text(text, encoding="utf-8")
+    paths = []
+    for _ in range(2):
+        rc, out, _err = run(capsys, "import", src, "-w", ws, "--json")
+        assert rc == 0
+        paths.append(Path(json.loads(out)["rejects_file"]))
+    assert paths == [ws / "rejects" / "in.rejects.csv", ws / "rejects" / "in.rejects-2.csv"]  # never overwritten
+    for p in paths:
+        assert p.stat().st_mode & 0o777 == 0o600
+    assert not (tmp_path / "in.rejects.csv").exists()
+    rc, out, _err = run(capsys, "import", src, "-w", ws)
+    assert str(ws / "rejects" / "in.rejects-3.csv") in out  # the message says where
+
+
+def _without_watch_words(ws: Path) -> None:
+    cfg = ws / "triage.toml"
+    text = cfg.read_text(encoding="utf-8")
+    start = text.index("watch_words = [")
+    end = text.index("]", start) + 1
+    cfg.write_text(text[:start] + text[end:], encoding="utf-8")
+
+
+def test_a_never_auto_queue_without_watch_words_is_warned_about(ws: Path, tmp_path: Path,
+                                                                capsys: pytest.CaptureFixture[str]) -> None:
+    _without_watch_words(ws)
+    rc, _out, err = run(capsys, "train", "-w", ws)
+    assert rc == 0, err
+    assert "[queues.safety] is never_auto but has no watch_words" in err
+    src = tmp_path / "incoming.csv"
+    src.write_text(csv_text(incoming(), [c for c in COLUMNS if c != "queue"]), encoding="utf-8")
+    rc, out, err = run(capsys, "route", src, "-w", ws, "--json")
+    assert rc == 0 and len(route_lines(out)[0]) == 10
+    assert "[queues.safety] is never_auto but has no watch_words" in err
+    from triage.app import Workspace
+
+    with Workspace.open(ws) as w:  # the function every front end (the terminal UI too) shows
+        assert any("safety" in x for x in w.safety_warnings())
+    assert_base_kept(ws)
+
+
+def test_a_queue_with_one_example_is_said_once_in_our_words(ws: Path, tmp_path: Path,
+                                                            capsys: pytest.CaptureFixture[str]) -> None:
+    rows = good()[:3]
+    rows[0]["queue"] = "warranty"
+    rows[0]["received_at"] = "2026-01-01T00:00:00"  # among the older items that cross-validation folds
+    src = tmp_path / "one.csv"
+    src.write_text(csv_text(rows), encoding="utf-8")
+    assert run(capsys, "import", src, "-w", ws)[0] == 0
+    rc, _out, err = run(capsys, "train", "-w", ws)
+    assert rc == 0, err
+    assert err.count("few labelled items in 'warranty' (1 item)") == 1
+    assert "UserWarning" not in err and "sklearn" not in err and "least populated" not in err
+    rc, _out, err = run(capsys, "evaluate", "-w", ws)
+    assert rc == 0 and err.count("'warranty' (1 item)") == 1 and "UserWarning" not in err
+
+
+def test_unreadable_times_are_never_the_newest(ws: Path, tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    rows = good()
+    for r in rows[:5]:
+        r["received_at"] = "yesterday"
+    src = tmp_path / "t.csv"
+    src.write_text(csv_text(rows), encoding="utf-8")
+    rc, _out, err = run(capsys, "import", src, "-w", ws)
+    assert rc == 0 and "5 of 20 rows have a time 'received_at' that is not a date and time" in err
+    with Store.open(ws / "triage.db") as st:
+        order = [r.item_id for r in st.labelled_items()]
+    assert set(order[:5]) == {r["ticket_id"] for r in rows[:5]}  # ordered oldest, never in the newest 20%
+    rc, out, err = run(capsys, "evaluate", "-w", ws)
+    assert rc == 0, err
+    assert "None" not in out.split("scored on", 1)[1].split("\n", 1)[0]
+
+
+def test_without_arrival_times_the_scorecard_uses_a_seeded_stratified_random_split(
+        tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    from sklearn.model_selection import train_test_split
+
+    from tests.helpers import pinned_voltwren_config
+
+    ws = tmp_path / "notime"
+    ws.mkdir()
+    (ws / "triage.toml").write_text(pinned_voltwren_config().replace('time = "received_at"\n', ""),
+                                    encoding="utf-8")
+    rows = ROWS[:300]
+    src = tmp_path / "t.csv"
+    src.write_text(csv_text(rows), encoding="utf-8")
+    assert run(capsys, "import", src, "-w", ws)[0] == 0
+    rc, out, err = run(capsys, "train", "-w", ws)
+    assert rc == 0 and "randomly chosen (no arrival times)" in out, err
+    rc, out, err = run(capsys, "evaluate", "-w", ws, "--json")
+    data = json.loads(out)
+    assert data["split"]["kind"] == "random" and data["split"]["stratified"] and data["split"]["seed"] == 0
+    # Reference: scikit-learn's train_test_split, stratified, seed 0, on the items in the store's order
+    with Store.open(ws / "triage.db") as st:
+        recs = st.labelled_items()
+    _, test = train_test_split(list(range(len(recs))), test_size=60, random_state=0,
+                               stratify=[r.label for r in recs])
+    assert data["split"]["test_items"] == 60 == data["scorecard"]["n"]
+    want = sorted(recs[i].label for i in test)
+    got = sorted(q for q, row in zip(data["scorecard"]["queues"], data["scorecard"]["matrix"], strict=True)
+                 for _ in range(sum(row)))
+    assert got == want
+    rc, out, _err = run(capsys, "evaluate", "-w", ws)
+    assert "No arrival times: trained on a random 240 items" in out and "None" not in out.split("\n", 1)[0]
+
+
+def test_read_only_commands_leave_the_workspace_untouched(ws: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    """evaluate, explain, models and overview open the store read-only (mode=ro): nothing in the folder is
+    written, created or migrated, so they work on a copy this user may only read."""
+    def snapshot() -> dict[str, tuple[int, bytes]]:
+        # SQLite's own -wal/-shm side files may appear where the folder allows it; the store and every
+        # other file must stay as they were
+        return {str(p.relative_to(ws)): (p.stat().st_mtime_ns, p.read_bytes()) for p in sorted(ws.rglob("*"))
+                if p.is_file() and not p.name.endswith(("-wal", "-shm"))}
+
+    before = snapshot()
+    modes = {p: p.stat().st_mode for p in [ws, *ws.rglob("*")]}
+    for p in sorted(modes, key=lambda x: -len(x.parts)):
+        p.chmod(0o555 if p.is_dir() else 0o444)
+    try:
+        for argv in (("evaluate",), ("explain", ROWS[0]["ticket_id"]), ("models",), ("overview",)):
+            rc, _out, err = run(capsys, *argv, "-w", ws)
+            assert rc == 0, (argv, err)
+        after = snapshot()
+        if os.geteuid() != 0:  # root may write whatever the modes say
+            rc, _out, err = run(capsys, "cutoff", "billing", "0.9", "-w", ws)
+            assert rc == 2 and "triage.db" in err  # a write still needs a writable copy, and says so
+    finally:
+        for p, m in modes.items():
+            p.chmod(m)
+    assert after == before
+    with Store.open(ws / "triage.db", read_only=True) as st:  # and the read-only store refuses any write
+        with pytest.raises(StoreError, match="read-only"), st.transaction():
+            pass

@@ -185,7 +185,7 @@ def test_restart_gives_the_same_model_corrections_included(ws_dir: Path) -> None
     with Workspace.open(ws_dir) as ws:
         ws.correct(ids[0], "safety", by="dana")
         ws.correct(ids[1], "cancellations", by="dana")
-        ws.correct(ids[2], "brand_new_queue", by="dana")
+        ws.correct(ids[2], "brand_new_queue", by="dana", new_queue=True)
         version = ws.active_version.version
         fields = [r.fields for r in ws.store.get_items(ids)]
         jll = ws.model.joint_log_likelihood(ws.model.encoder.transform(fields, allow_missing=True))

@@ -311,6 +311,9 @@ def test_correction_is_learned_and_used_by_the_next_route(base_dir: Path, tmp_pa
         assert r.status_code == 404  # not routed yet
         assert c.post("/v1/route", json=items[101]).status_code == 200
         r = c.post("/v1/corrections", json={"item_id": items[101]["id"], "queue": "warranty_claims"})
+        assert r.status_code == 422 and r.json()["field"] == "queue" and "new_queue" in r.json()["error"]
+        r = c.post("/v1/corrections", json={"item_id": items[101]["id"], "queue": "warranty_claims",
+                                            "new_queue": True})
         assert r.status_code == 200, r.text
         assert "warranty_claims" in c.get("/v1/model").json()["queues"]
 

@@ -14,6 +14,7 @@ from sklearn.metrics import confusion_matrix, precision_recall_fscore_support
 from statsmodels.stats.proportion import proportion_confint
 
 from triage.app import Workspace, WorkspaceError
+from triage.app.errors import UnknownQueue
 from triage.core.model import NaiveBayes
 from triage.core.routing import decide
 
@@ -105,7 +106,7 @@ def test_corrections_equal_a_fresh_fit_on_the_corrected_labels(ws: Workspace, tm
     ws.correct(a, "billing", by="dana")
     ws.correct(b, "hardware_fault", by="dana")
     ws.correct(b, "app_connectivity", by="lee")  # corrected twice
-    ws.correct(c, "warranty_claims", by="dana")  # a brand-new queue
+    ws.correct(c, "warranty_claims", by="dana", new_queue=True)  # a brand-new queue
     rep = ws.correct(routed, "cancellations", by="dana")
     assert rep.before is None and rep.after == "cancellations"
     ws.correct(routed, "billing", by="dana")
@@ -136,7 +137,11 @@ def test_corrections_equal_a_fresh_fit_on_the_corrected_labels(ws: Workspace, tm
 def test_a_correction_to_a_new_queue(ws: Workspace) -> None:
     item = demo_rows(1)[0]["ticket_id"]
     assert "warranty_claims" not in ws.model.queues
-    rep = ws.correct(item, "warranty_claims", by="dana")
+    # a queue not yet known is refused unless asked for explicitly, with the closest known queue named
+    with pytest.raises(UnknownQueue, match=r"'biling' is not a known queue; did you mean 'billing'\?"):
+        ws.correct(item, "biling", by="dana")
+    assert ws.store.corrections() == []
+    rep = ws.correct(item, "warranty_claims", by="dana", new_queue=True)
     assert "warranty_claims" in ws.model.queues
     assert ws.store.queue_counts()["warranty_claims"] == 1
     counts = dict(zip(ws.model.queues, ws.model.counts.class_count_, strict=True))

@@ -161,8 +161,9 @@ def render_models(versions: Sequence[Any], console: Console = out) -> None:
 
 
 # ----- commands ----------------------------------------------------------------------------------------------
-def _ws(args: argparse.Namespace) -> Workspace:
-    return Workspace.open(args.workspace)
+def _ws(args: argparse.Namespace, *, read_only: bool = False) -> Workspace:
+    """The workspace; commands that only look open it read-only, so they work on a read-only copy."""
+    return Workspace.open(args.workspace, read_only=read_only)
 
 
 def cmd_init(args: argparse.Namespace) -> int:
@@ -245,22 +246,25 @@ def cmd_train(args: argparse.Namespace) -> int:
                   f"{', then isotonic' if (c.get('isotonic') or {}).get('used') else ''}; on the newest items the "
                   f"expected calibration error is {hold['ece_before']:.3f} raw, {hold['ece_after']:.3f} calibrated.")
         sc = meas.scorecard
-        out.print(f"On the newest {meas.split['test_items']} items (not used to fit): accuracy {_pct(sc.accuracy)}, "
+        which = "newest" if meas.split.get("kind") == "time" else "randomly chosen (no arrival times)"
+        out.print(f"On the {which} {meas.split['test_items']} items (not used to fit): accuracy {_pct(sc.accuracy)}, "
                   f"auto-routed {_pct(sc.coverage)} at precision {_pct(sc.auto_precision)}. `triage evaluate` "
                   "shows the full scorecard.")
     return 0
 
 
 def cmd_evaluate(args: argparse.Namespace) -> int:
-    with _ws(args) as ws:
+    with _ws(args, read_only=True) as ws:
         update, stop = _progress_cb(not args.json and err.is_terminal)
         try:
             meas = ws.evaluate(progress=update, split=args.split, folds=args.folds)
         finally:
             stop()
         card = meas.scorecard.to_dict()
+        for w in meas.notes:
+            err.print(f"warning: {w}", markup=False, soft_wrap=True)
         if args.json:
-            _emit_json({"split": meas.split, "scorecard": card, "cutoffs": meas.cutoffs,
+            _emit_json({"split": meas.split, "scorecard": card, "warnings": meas.notes, "cutoffs": meas.cutoffs,
                         "active_cutoffs": meas.active_cutoffs,
                         "scorecard_at_active_cutoffs": meas.at_active.to_dict() if meas.at_active else None,
                         "calibration": meas.calibration, "precision_coverage": meas.precision_coverage(50)})
@@ -336,6 +340,8 @@ def cmd_route(args: argparse.Namespace) -> int:
         if args.follow:
             return _follow(ws, args)
         id_field = ws.config.schema.id
+        for w in ws.safety_warnings():
+            err.print(f"warning: {w}", markup=False, soft_wrap=True)
         if args.file == "-":
             from triage.app import read_jsonl_stream
 
@@ -356,9 +362,6 @@ def cmd_route(args: argparse.Namespace) -> int:
             decisions, result, batch = ws.route_file(args.file)
             src = Path(args.file).name
             errors = [_error_record(src, rj, id_field) for rj in result.rejects]
-            decided = {d["id"] for d in decisions}
-            errors += [_clash_record(src, r.item_id) for r in getattr(result, "not_routed", [])
-                       if r.item_id not in decided]
             for w in result.warnings[:25]:
                 err.print(f"warning: {w}", markup=False, soft_wrap=True)
         if args.json or not sys.stdout.isatty():
@@ -437,7 +440,7 @@ def _follow(ws: Workspace, args: argparse.Namespace) -> int:
 
 
 def cmd_explain(args: argparse.Namespace) -> int:
-    with _ws(args) as ws:
+    with _ws(args, read_only=True) as ws:
         x = ws.explain(args.id, n=args.top)
         if args.json:
             _emit_json(x)
@@ -448,7 +451,7 @@ def cmd_explain(args: argparse.Namespace) -> int:
 
 def cmd_correct(args: argparse.Namespace) -> int:
     with _ws(args) as ws:
-        rep = ws.correct(args.id, args.queue, by=args.by)
+        rep = ws.correct(args.id, args.queue, by=args.by, new_queue=args.new_queue)
         data = {"correction": vars(rep.correction), "model_version": rep.version.version, "before": rep.before,
                 "after": rep.after, "decision": rep.decision}
         if args.json:
@@ -473,7 +476,7 @@ def cmd_undo(args: argparse.Namespace) -> int:
 
 
 def cmd_models(args: argparse.Namespace) -> int:
-    with _ws(args) as ws:
+    with _ws(args, read_only=args.action == "list") as ws:
         if args.action == "activate":
             if args.version is None:
                 raise WorkspaceError("say which version: triage models activate VERSION")
@@ -508,7 +511,7 @@ def cmd_cutoff(args: argparse.Namespace) -> int:
 
 
 def cmd_overview(args: argparse.Namespace) -> int:
-    with _ws(args) as ws:
+    with _ws(args, read_only=True) as ws:
         data = ws.overview()
     if args.json:
         _emit_json(data)
@@ -712,7 +715,9 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("--top", type=int, default=10, help="terms to show on each side (default 10)")
     sp = add("correct", cmd_correct, "move an item to the right queue: journaled, then learned at once")
     sp.add_argument("id", help="the item id")
-    sp.add_argument("queue", help="the right queue (a new queue name is allowed)")
+    sp.add_argument("queue", help="the right queue")
+    sp.add_argument("--new-queue", action="store_true",
+                    help="QUEUE is a new queue: create it (without this, a queue not yet known is refused)")
     sp.add_argument("--by", default="operator", help="who made the correction")
     sp = add("undo", cmd_undo, "undo the newest correction, whoever made it (journaled and learned like any "
              "correction)")

@@ -741,6 +741,7 @@ def read_items(
     progress: bool = False,
     rejects_dir: Path | None = None,
     labels: dict[str, str] | None = None,
+    warn_similar: bool = True,
 ) -> IngestResult:
     """Read and validate a whole file.
 
@@ -820,7 +821,7 @@ def read_items(
         warn.add(f"{src}: {len(checker.bad_times)} of {rows_read} rows have a time {schema.time!r} that is not a "
                  f"date and time ({shown}{more}); they are kept without an arrival time, so they are never "
                  "scored as the newest items")
-    if require_label:
+    if require_label and warn_similar:
         for group in similar_labels(Counter(r.label for r in records if r.label)):
             warn.add(describe_similar(src, group))
 

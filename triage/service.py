@@ -447,7 +447,7 @@ class _Service:
 
         def job() -> dict[str, Any]:
             obj = _object(_parse_json(body), None)
-            _unknown_keys(obj, ("item_id", "queue", "by"), "")
+            _unknown_keys(obj, ("item_id", "queue", "by", "new_queue"), "")
             item_id = _string(obj, "item_id", required=True, limit=MAX_ID_CHARS)
             queue = _string(obj, "queue", required=True, limit=MAX_NAME_CHARS)
             by = _string(obj, "by", required=False, limit=MAX_BY_CHARS) or SOURCE
@@ -457,7 +457,10 @@ class _Service:
                 if ws.store.get_item(item_id) is None:
                     raise ApiError(404, f"no item with id {item_id!r}; route it (or import it) first", "item_id")
                 try:
-                    report = ws.correct(item_id, queue, by)
+                    # a queue not yet known needs "new_queue": true; the rule itself is the app layer's
+                    if not isinstance(obj.get("new_queue", False), bool):
+                        raise ApiError(422, "new_queue must be true or false", "new_queue")
+                    report = ws.correct(item_id, queue, by, new_queue=obj.get("new_queue", False))
                 except WorkspaceError as exc:
                     field = "item_id" if isinstance(exc, UnknownItem) else "queue"
                     raise ApiError(status_for(exc), self._clean(str(exc)), field) from exc

@@ -3,19 +3,49 @@ activated as a new model version; undo is a correction back to the previous queu
 
 from __future__ import annotations
 
+import difflib
 from typing import TYPE_CHECKING
 
 from triage.app.active import commit_correction, replay_pending, require_model
 from triage.app.decisions import CorrectionReport
-from triage.app.errors import BadInput, UnknownItem
+from triage.app.errors import BadInput, UnknownItem, UnknownQueue
 from triage.app.routing import decide_records
 
 if TYPE_CHECKING:
     from triage.app.workspace import Workspace
 
 
-def correct(ws: Workspace, item_id: str, queue: str, by: str = "operator") -> CorrectionReport:
-    """Journal a correction (durable first), learn it exactly, and activate the corrected model."""
+def known_queues(ws: Workspace) -> set[str]:
+    """The queues the active model or the labelled items know."""
+    active = ws._active
+    return (set(active.model.queues) if active is not None else set()) | set(ws.store.queue_counts())
+
+
+def check_queue(ws: Workspace, queue: str, *, new_queue: bool) -> None:
+    """May an item be sent to `queue`? Decided here, once, for the command line, the service and the UI.
+
+    A known queue, yes. A queue not yet known only when the person asked for a new one explicitly
+    (`new_queue`): a typo ("netwrok") would otherwise create a queue of its own without a word. The refusal
+    names the closest known queue."""
+    known = known_queues(ws)
+    if queue in known:
+        return
+    if not queue.replace("_", "").replace("-", "").isalnum():
+        raise BadInput(f"queue {queue!r}: use letters, digits, '_' or '-' for a new queue")
+    if new_queue:
+        return
+    folded = {q.casefold(): q for q in known}
+    close = difflib.get_close_matches(queue.casefold(), sorted(folded), n=1, cutoff=0.6)
+    hint = f"; did you mean {folded[close[0]]!r}?" if close else ""
+    raise UnknownQueue(f"queue {queue!r} is not a known queue{hint} (known: {', '.join(sorted(known))}); to "
+                       "create a new queue, ask for it explicitly (--new-queue on the command line, "
+                       "\"new_queue\": true in a request)")
+
+
+def correct(ws: Workspace, item_id: str, queue: str, by: str = "operator", *,
+            new_queue: bool = False) -> CorrectionReport:
+    """Journal a correction (durable first), learn it exactly, and activate the corrected model.
+    A queue not yet known needs `new_queue=True` (see `check_queue`)."""
     queue = queue.strip()
     if not queue:
         raise BadInput("the queue to correct to is empty")
@@ -26,9 +56,7 @@ def correct(ws: Workspace, item_id: str, queue: str, by: str = "operator") -> Co
         rec = ws.store.get_item(item_id)
         if rec is None:
             raise UnknownItem(f"{ws.store.path}: no item with id {item_id!r}")
-        known = set(active.model.queues) | set(ws.store.queue_counts())
-        if queue not in known and not queue.replace("_", "").replace("-", "").isalnum():
-            raise BadInput(f"queue {queue!r}: use letters, digits, '_' or '-' for a new queue")
+        check_queue(ws, queue, new_queue=new_queue)
         c = ws.store.journal_correction(item_id, queue, by, active.version.version)
         before = rec.label
         mv = commit_correction(ws, c)

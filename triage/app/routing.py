@@ -15,7 +15,7 @@ from triage.core.encode import EncodedBatch
 from triage.core.evidence import strongest_batch
 from triage.core.metrics import population_stability_index
 from triage.core.routing import Verdict, decide, plain_words, watch_hits
-from triage.ingest import IngestResult, read_items
+from triage.ingest import IngestResult, Reject, read_items
 from triage.records import ItemRecord
 from triage.store import Decision
 
@@ -23,6 +23,8 @@ if TYPE_CHECKING:
     from triage.app.workspace import Workspace
 
 EVIDENCE_TERMS = 8
+CLASH_REASON = ("already stored with other field values (a reopened or changed item); not routed: give it a new id "
+                "or route the stored one")
 # a population stability index above 0.25 is read as a major shift (common practice in credit scoring, no source)
 PSI_FLAG = 0.25
 
@@ -117,10 +119,18 @@ def stored_with_other_fields(ws: Workspace, records: Sequence[ItemRecord]) -> se
 def route_file(ws: Workspace, path: Path | str) -> tuple[list[dict[str, Any]], IngestResult, int]:
     """Route every good row of a file; rows whose id is stored with other fields are left out, with a
     warning naming them (give a changed item a new id)."""
-    result = read_items(path, ws.config.schema, require_label=False, max_text_chars=ws.config.max_text_chars)
+    result = read_items(path, ws.config.schema, require_label=False, max_text_chars=ws.config.max_text_chars,
+                        rejects_dir=ws.rejects_dir)
     clash = stored_with_other_fields(ws, result.records)
     if clash:
-        result.records = [r for r in result.records if r.item_id not in clash]
+        # each such row is not routed and says so in the result, as a reject naming its row: every input row
+        # gets a decision or an error record
+        for rec, row in zip(result.records, result.record_rows, strict=True):
+            if rec.item_id in clash:
+                result.rejects.append(Reject(row=row, field=ws.config.schema.id, reason=CLASH_REASON,
+                                             raw={ws.config.schema.id: rec.item_id, **rec.fields}))
+        kept = [(r, n) for r, n in zip(result.records, result.record_rows, strict=True) if r.item_id not in clash]
+        result.records, result.record_rows = [r for r, _ in kept], [n for _, n in kept]
         shown = ", ".join(sorted(clash)[:10]) + (" ..." if len(clash) > 10 else "")
         result.warnings.append(f"{path}: {len(clash)} item(s) not routed: already stored with other field "
                                f"values (give a changed item a new id): {shown}")

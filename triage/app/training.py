@@ -5,7 +5,9 @@ from __future__ import annotations
 
 import hashlib
 import time
-from collections.abc import Callable, Sequence
+import warnings
+from collections.abc import Callable, Iterator, Sequence
+from contextlib import contextmanager
 from dataclasses import replace
 from typing import TYPE_CHECKING, Any
 
@@ -25,7 +27,15 @@ from triage.app.routing import watch_word_hits
 from triage.config import Config
 from triage.core.calibrate import softmax_rows
 from triage.core.encode import EncodedBatch, Encoder
-from triage.core.measure import CutoffRules, Measurement, reliability_figures, scored_confidence, time_split
+from triage.core.measure import (
+    SPLIT_SEED,
+    CutoffRules,
+    Measurement,
+    random_split,
+    reliability_figures,
+    scored_confidence,
+    time_split,
+)
 from triage.core.measure import fit_policy as fit_policy_rules
 from triage.core.metrics import scorecard
 from triage.core.model import ModelSpec, NaiveBayes
@@ -90,6 +100,56 @@ def labelled(ws: Workspace) -> list[ItemRecord]:
     return recs
 
 
+def test_split(recs: Sequence[ItemRecord]) -> tuple[list[ItemRecord], list[ItemRecord], dict[str, Any]]:
+    """The items to fit on, the items to score, and how they were chosen.
+
+    With arrival times: the newest items are scored (items without a time sort first, so they are never
+    among them). With no arrival time at all: a seeded random split, stratified by queue (ids are not an
+    order). `train` and `measure` both call this, so settings are chosen on the same items measure fits on."""
+    if any(r.arrived_at for r in recs):
+        older, newer = time_split(recs)
+        return list(older), list(newer), {"kind": "time", "train_items": len(older), "test_items": len(newer),
+                                          "test_from": newer[0].arrived_at, "test_to": newer[-1].arrived_at}
+    train_rows, test_rows, stratified = random_split([r.label or "" for r in recs])
+    return ([recs[i] for i in train_rows], [recs[i] for i in test_rows],
+            {"kind": "random", "seed": SPLIT_SEED, "stratified": stratified, "train_items": len(train_rows),
+             "test_items": len(test_rows)})
+
+
+@contextmanager
+def library_warnings(labels: Sequence[str], notes: list[str]) -> Iterator[None]:
+    """Catch scikit-learn's warnings (a queue with one example trips its fold splitter) and say each once, in
+    our words, in `notes`; warnings from elsewhere pass through unchanged."""
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        yield
+    said: set[str] = set()
+    for w in caught:
+        if "sklearn" not in (w.filename or "") and not type(w.message).__module__.startswith("sklearn"):
+            warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
+            continue
+        text = str(w.message)
+        if "least populated class" in text:
+            counts: dict[str, int] = {}
+            for lab in labels:
+                counts[lab] = counts.get(lab, 0) + 1
+            rare = sorted((n, q) for q, n in counts.items() if n < RARE_QUEUE_ITEMS)
+            listed = ", ".join(f"{q!r} ({n} item{'s' if n != 1 else ''})" for n, q in rare)
+            key = "rare"
+            line = (f"few labelled items in {listed}: cross-validation cannot put such a queue in every fold, so "
+                    "its calibration, cutoff and scores rest on almost nothing; label more of its items, or map "
+                    "it to another queue in [labels]")
+        else:
+            key, line = text, f"scikit-learn says: {text}"
+        if key not in said:
+            said.add(key)
+            notes.append(line)
+
+
+# a queue with fewer labelled items than the folds of cross-validation (5) cannot be in every fold
+RARE_QUEUE_ITEMS = 5
+
+
 def encode(ws: Workspace, spec: ModelSpec, items: Sequence[dict[str, Any]]) -> tuple[Encoder, EncodedBatch]:
     """A fitted encoder and the items' matrix, from one tokenisation pass."""
     tok = Tokenizer(bigrams=spec.bigrams, max_token_chars=spec.max_token_chars)
@@ -106,7 +166,7 @@ def measure(ws: Workspace, spec: ModelSpec, recs: Sequence[ItemRecord] | None = 
     `encoded` is the older items' encoding when the caller has it already (same tokenizer settings)."""
     say = progress or (lambda _s, _f: None)
     recs = list(recs) if recs is not None else labelled(ws)
-    older, newer = time_split(recs)
+    older, newer, split = test_split(recs)
     labels = [r.label or "" for r in older]
     say("tokenising", 0.1)
     enc, batch = encoded if encoded is not None else encode(ws, spec, [r.fields for r in older])
@@ -132,8 +192,6 @@ def measure(ws: Workspace, spec: ModelSpec, recs: Sequence[ItemRecord] | None = 
     card = scorecard([r.label for r in newer], [v.suggested for v in verdicts], scored_confidence(verdicts),
                      all_queues, cutoffs, never_auto=never,
                      targets={q: ws.config.queue_settings(q).target_precision for q in all_queues})
-    split = {"kind": "time", "train_items": len(older), "test_items": len(newer),
-             "test_from": newer[0].arrived_at, "test_to": newer[-1].arrived_at}
     meas = Measurement(spec, policy, card, calibration, cutoff_info, split, [r.item_id for r in newer],
                        [r.label or "" for r in newer], probs, list(model.queues), hits)
     meas.test_jll = test_jll
@@ -231,6 +289,20 @@ def train(ws: Workspace, *, progress: Progress | None = None, cancel: Callable[[
         pending = [c.id for c in journal if c.status == "pending"]
         # corrections after the mark are replayed on the new model; a pending one may be applied meanwhile
         mark = (min(pending) - 1) if pending else max((c.id for c in journal), default=0)
+    notes: list[str] = []
+    with library_warnings([r.label or "" for r in recs], notes):
+        model, measurement, selection, base = _fit(ws, recs, say, check)
+    say("saving", 0.95)
+    version = save_trained(ws, model, recs, measurement, selection, note or "trained", kind="train",
+                           corrections_after=mark)
+    say("done", 1.0)
+    return TrainReport(version, measurement, selection, len(recs), time.perf_counter() - t0,
+                       ws.config_warnings({r.label or "" for r in recs}) + notes)
+
+
+def _fit(ws: Workspace, recs: list[ItemRecord], say: Progress,
+         check: Callable[[], None]) -> tuple[NaiveBayes, Measurement, list[dict[str, Any]], ModelSpec]:
+    """Choose settings (unless pinned), measure, and fit the final model on every labelled item."""
     base = spec_from_config(ws.config)
     selection: list[dict[str, Any]] = []
     encoded: tuple[Encoder, EncodedBatch] | None = None
@@ -239,7 +311,7 @@ def train(ws: Workspace, *, progress: Progress | None = None, cancel: Callable[[
         specs = [s for s in quick_grid(base)
                  if (m.text_model == "auto" or s.text_model == m.text_model)
                  and (m.alpha_text == "auto" or s.alpha_text == float(m.alpha_text))]
-        older, _ = time_split(recs)
+        older, _, _ = test_split(recs)
         enc, batch = encode(ws, base, [r.fields for r in older])
         encoded = (enc, batch)  # the grid varies only the text model and alpha: measure reuses this pass
         check()
@@ -261,12 +333,7 @@ def train(ws: Workspace, *, progress: Progress | None = None, cancel: Callable[[
     labels = [r.label or "" for r in recs]
     model = NaiveBayes.fit(ws.config.schema, items, labels, base)
     check()
-    say("saving", 0.95)
-    version = save_trained(ws, model, recs, measurement, selection, note or "trained", kind="train",
-                           corrections_after=mark)
-    say("done", 1.0)
-    return TrainReport(version, measurement, selection, len(recs), time.perf_counter() - t0,
-                       ws.config_warnings({r.label or "" for r in recs}))
+    return model, measurement, selection, base
 
 
 def save_trained(ws: Workspace, model: NaiveBayes, recs: Sequence[ItemRecord], meas: Measurement,
@@ -305,13 +372,19 @@ def evaluate(ws: Workspace, progress: Progress | None = None, split: str = "time
     """The scorecard of the active model's settings on the current labels (corrections included):
     split "time" scores the newest items, "kfold" every item by stratified k-fold."""
     active: ActiveModel = require_model(ws)
-    if split == "kfold":
-        if folds < 2:
-            raise BadInput(f"--folds {folds}: k-fold evaluation needs at least 2 folds")
-        return measure_kfold(ws, active.model.spec, folds=folds, progress=progress)
-    if split != "time":
+    if split not in ("time", "kfold"):
         raise BadInput(f"unknown split {split!r}; use time or kfold")
-    meas = measure(ws, active.model.spec, progress=progress)
+    if split == "kfold" and folds < 2:
+        raise BadInput(f"--folds {folds}: k-fold evaluation needs at least 2 folds")
+    recs = labelled(ws)
+    notes: list[str] = []
+    with library_warnings([r.label or "" for r in recs], notes):
+        if split == "kfold":
+            meas = measure_kfold(ws, active.model.spec, recs, folds=folds, progress=progress)
+            meas.notes = notes
+            return meas
+        meas = measure(ws, active.model.spec, recs, progress=progress)
+    meas.notes = notes
 
     # routing may use cutoffs set by hand: score the same rows at those too
     def same(a: float | None, b: float | None) -> bool:

@@ -19,11 +19,12 @@ from triage.app.errors import Conflict
 from triage.config import Config, ConfigError, dump_config, load_config
 from triage.core.model import NaiveBayes
 from triage.core.routing import RoutingPolicy
-from triage.ingest import read_items
+from triage.ingest import describe_similar, read_items, similar_labels
 from triage.store import ModelVersion, Store
 
 CONFIG_NAME = "triage.toml"
 DB_NAME = "triage.db"
+REJECTS_DIR = "rejects"
 
 
 class Workspace:
@@ -37,14 +38,22 @@ class Workspace:
         self._active: ActiveModel | None = None
         self._config_stamp = self._stamp()
         load_active(self)
-        replay_pending(self)
+        if not store.read_only:  # a read-only copy shows what is stored; pending corrections wait for a writer
+            replay_pending(self)
 
     # ----- opening ---------------------------------------------------------------------------------------
     @classmethod
-    def open(cls, root: Path | str = ".") -> Workspace:
+    def open(cls, root: Path | str = ".", *, read_only: bool = False) -> Workspace:
+        """Open a workspace folder. `read_only` is for commands that only look (evaluate, explain, models,
+        overview): the store is opened read-only, nothing is migrated or written, so they work on a copy
+        on a read-only disk or in a folder this user may only read."""
         root = Path(root).resolve()
         config = load_config(root / CONFIG_NAME)
-        return cls(root, config, Store.open(root / DB_NAME))
+        return cls(root, config, Store.open(root / DB_NAME, read_only=read_only))
+
+    @property
+    def read_only(self) -> bool:
+        return self.store.read_only
 
     @staticmethod
     def create(root: Path | str, config: Config, comments: dict[str, str] | None = None,
@@ -94,9 +103,17 @@ class Workspace:
     def config_warnings(self, labels: set[str] | None = None) -> list[str]:
         """Config entries that match nothing: a queue named in [queues] that no item carries gets no safeguard."""
         labels = labels if labels is not None else set(self.store.queue_counts())
-        return [f"{self.root / CONFIG_NAME}: [queues.{q}] names no queue of the labelled items "
-                f"(queues: {', '.join(sorted(labels))}); check the spelling, its rules apply to nothing"
-                for q in self.config.queues if q not in labels]
+        out = [f"{self.root / CONFIG_NAME}: [queues.{q}] names no queue of the labelled items "
+               f"(queues: {', '.join(sorted(labels))}); check the spelling, its rules apply to nothing"
+               for q in self.config.queues if q not in labels]
+        return out + self.safety_warnings()
+
+    def safety_warnings(self) -> list[str]:
+        """Never-auto queues without watch words: only the model guards them, and a hazard mentioned in an item
+        about something else is what a text model misses. Every front end shows these (train, route, the UI)."""
+        return [f"{self.root / CONFIG_NAME}: [queues.{q}] is never_auto but has no watch_words: only the model "
+                "guards it; add word starts that mark it (`triage init --from FILE` proposes some from the data)"
+                for q in self.config.unwatched_never_auto()]
 
     # ----- the active model ------------------------------------------------------------------------------
     @property
@@ -126,9 +143,24 @@ class Workspace:
     def import_file(self, path: Path | str, *, progress: bool = False) -> ImportReport:
         """Read, validate and store a labelled export; bad rows go to the rejects file, good rows are kept."""
         result = read_items(path, self.config.schema, require_label=True,
-                            max_text_chars=self.config.max_text_chars, progress=progress)
+                            max_text_chars=self.config.max_text_chars, progress=progress,
+                            rejects_dir=self.rejects_dir, labels=self.config.labels, warn_similar=False)
+        # look-alike queue names, in this file and against the queues already stored
+        counts = dict(self.store.queue_counts())
+        for r in result.records:
+            if r.label:
+                counts[r.label] = counts.get(r.label, 0) + 1
+        incoming = {r.label for r in result.records if r.label}
+        for group in similar_labels(counts):
+            if any(name in incoming for name, _n in group):
+                result.warnings.append(describe_similar(Path(path).name, group))
         summary = self.store.import_items(result.records, source=str(path))
         return ImportReport(result, summary.added, summary.unchanged, summary.conflicts)
+
+    @property
+    def rejects_dir(self) -> Path:
+        """Rejected rows hold personal data: they stay in the workspace, never in a shared temporary folder."""
+        return self.root / REJECTS_DIR
 
     # ----- the use cases, each in its own module ---------------------------------------------------------
     measure = training.measure

@@ -46,6 +46,27 @@ def time_split(recs: Sequence[T], share: float = TEST_SHARE) -> tuple[Sequence[T
     return recs[: len(recs) - n_test], recs[len(recs) - n_test:]
 
 
+SPLIT_SEED = 0
+
+
+def random_split(labels: Sequence[str], share: float = TEST_SHARE,
+                 seed: int = SPLIT_SEED) -> tuple[np.ndarray, np.ndarray, bool]:
+    """Train and test row indices for items without arrival times: a seeded random split, stratified by queue
+    (scikit-learn's train_test_split) when every queue has two items or more and the test part can hold one
+    of each; else unstratified. Returns (train rows, test rows, stratified). Ids are not an order: where
+    they are codes, the "last" 20% by id is another queue mix altogether."""
+    from sklearn.model_selection import train_test_split
+
+    n = len(labels)
+    rows = np.arange(n)
+    n_test = max(1, int(round(n * share)))
+    _, counts = np.unique(np.asarray(labels, dtype=object).astype(str), return_counts=True)
+    stratified = bool(counts.min() >= 2 and n_test >= len(counts) and n - n_test >= len(counts))
+    train, test = train_test_split(rows, test_size=n_test, random_state=seed,
+                                   stratify=np.asarray(labels, dtype=object).astype(str) if stratified else None)
+    return np.sort(train), np.sort(test), stratified
+
+
 def _table(conf: np.ndarray, correct: np.ndarray) -> list[dict[str, Any]]:
     return [vars(b) if hasattr(b, "__dict__") else b._asdict() for b in reliability_table(conf, correct)]
 
@@ -139,6 +160,8 @@ class Measurement:
     # when routing uses cutoffs other than the solved ones (set by hand): those, and the scorecard at them
     active_cutoffs: dict[str, float | None] | None = None
     at_active: Scorecard | None = None
+    # what went wrong quietly while measuring (a queue too rare for the folds), in words for a person
+    notes: list[str] = field(default_factory=list)
 
     def verdicts(self, cutoffs: dict[str, float | None] | None = None) -> list[Verdict]:
         """The routing decisions on the test rows (a k-fold row under its own fold's policy); `cutoffs`
