@@ -302,7 +302,7 @@ def test_route_decides_unseen_values_empty_text_and_missing_fields(ws: Path, tmp
     for d in decisions:
         assert d["suggested"] in queues and math.isfinite(d["confidence"])
     assert set(decisions[3]["unseen_words"]) >= {"xqzzv", "plorb", "wibblefrotz"}
-    assert not (tmp_path / "odd.rejects.csv").exists()
+    assert not (tmp_path / "odd.rejects.csv").exists() and not (ws / "rejects" / "odd.rejects.csv").exists()
 
 
 # ----------------------------------------------------------------------------------------------- safety
@@ -515,7 +515,7 @@ def test_bad_rows_are_rejected_with_row_numbers_and_good_rows_kept(corpus: Path,
     data = cli_json(capsys, "import", src, "-w", desk)
     assert data["rows_read"] == 12 and data["added"] == 8 and data["rejected"] == 4
     rejects_file = Path(data["rejects_file"])
-    assert rejects_file == tmp_path / "messy.rejects.csv"
+    assert rejects_file == desk / "rejects" / "messy.rejects.csv"  # in the workspace, beside the rest of the data
     with rejects_file.open(newline="", encoding="utf-8") as fh:
         got = {int(r["row"]): (r["field"], r["reason"]) for r in csv.DictReader(fh)}
     assert set(got) == {3, 5, 7, 9}
