@@ -108,6 +108,8 @@ class TriageApp(App[None]):
         self._fit(self.size.width)
         self.outside = outside_stamp(self.ws)
         self.set_interval(self.poll_seconds, self.look_outside)
+        for w in self.ws.safety_warnings():  # a never-auto queue without watch words: said as the UI opens
+            self.notify(w, title="safety", severity="warning", timeout=30)
 
     def on_resize(self, event: events.Resize) -> None:
         self._fit(event.size.width)
