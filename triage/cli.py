@@ -21,7 +21,7 @@ from rich.table import Table
 
 from triage import __version__
 from triage.app import USER_ERRORS as APP_USER_ERRORS
-from triage.app import Workspace, WorkspaceError, describe_reject
+from triage.app import Workspace, WorkspaceError, describe_reject, first_of_each_id
 
 # the error types that exit 2 with one line on stderr; any other exception is a bug and shows its traceback
 USER_ERRORS = (*APP_USER_ERRORS, FileNotFoundError, PermissionError, IsADirectoryError)
@@ -353,7 +353,7 @@ def cmd_route(args: argparse.Namespace) -> int:
                     line_of.append(counted.n)  # the stream is lazy: the line just read is this item's
                 else:
                     rejects.append(r)
-            records, dupes = _first_of_each_id(records, line_of, id_field)
+            records, dupes = first_of_each_id(records, line_of, id_field)
             errors = [_error_record("<stdin>", rj, id_field) for rj in [*rejects, *dupes]]
             clash = ws.stored_with_other_fields(records)
             errors += [_clash_record("<stdin>", item_id) for item_id in sorted(clash)]
@@ -393,23 +393,6 @@ class _Counted:
         line = next(self.lines)
         self.n += 1
         return line
-
-
-def _first_of_each_id(records: list[Any], line_of: list[int], id_field: str) -> tuple[list[Any], list[Any]]:
-    """A second item with an id seen earlier in the same input is not decided: it gets an error record, as a
-    file's second row with one id does."""
-    from triage.ingest import Reject
-
-    seen: dict[str, int] = {}
-    keep, dupes = [], []
-    for r, line in zip(records, line_of, strict=True):
-        if r.item_id in seen:
-            dupes.append(Reject(row=line, field=id_field, reason=f"duplicate of row {seen[r.item_id]}",
-                                raw={id_field: r.item_id}))
-            continue
-        seen[r.item_id] = line
-        keep.append(r)
-    return keep, dupes
 
 
 def _follow(ws: Workspace, args: argparse.Namespace) -> int:

@@ -2,7 +2,7 @@
 
 Endpoints (JSON in, JSON out):
     POST /v1/route         one item {"id", "fields", "arrived_at"} or {"items": [...]}: decide, store, answer
-    POST /v1/corrections   {"item_id", "queue", "by"}: journal, learn at once, answer the item's new decision
+    POST /v1/corrections   {"item_id", "queue", "by", "new_queue"}: journal, learn at once, answer the item's new decision
     GET  /v1/health        liveness and the active model version (never needs the token)
     GET  /v1/model         the active model: version, text model, queues, cutoffs, never-auto queues, ...
     GET  /openapi.json     the OpenAPI 3.1 description of all of the above (`OPENAPI`, written by hand)

@@ -18,7 +18,7 @@ from triage.app.errors import (
     UnknownQueue,
     WorkspaceError,
 )
-from triage.app.routing import records_from_dicts
+from triage.app.routing import first_of_each_id, records_from_dicts
 from triage.app.training import Progress
 from triage.app.workspace import CONFIG_NAME, DB_NAME, Workspace
 from triage.config import ConfigError
@@ -38,7 +38,7 @@ __all__ = ["Workspace", "WorkspaceError", "NoModel", "UnknownItem", "UnknownQueu
            "Cancelled", "ConfigError", "Measurement", "TrainReport", "ImportReport", "CorrectionReport",
            "RoutingDecision", "HeldBy", "records_from_dicts", "Progress", "CONFIG_NAME", "DB_NAME",
            "CountError", "MissingFieldError", "IngestError", "StoreError", "ArtifactError", "USER_ERRORS",
-           "Reject", "describe_reject", "read_jsonl_stream", "infer_config", "Scorecard", "ModelSpec", "Schema"]
+           "Reject", "describe_reject", "first_of_each_id", "read_jsonl_stream", "infer_config", "Scorecard", "ModelSpec", "Schema"]
 
 # every error a user can cause and fix: front ends show its message (the CLI exits 2); anything else is a bug
 USER_ERRORS: tuple[type[Exception], ...] = (WorkspaceError, ConfigError, IngestError, StoreError, ArtifactError,

@@ -116,6 +116,23 @@ def stored_with_other_fields(ws: Workspace, records: Sequence[ItemRecord]) -> se
     return {r.item_id for r in records if r.item_id in stored and stored[r.item_id] != r.fields}
 
 
+def first_of_each_id(records: Sequence[ItemRecord], rows: Sequence[int],
+                     id_field: str) -> tuple[list[ItemRecord], list[Reject]]:
+    """Within one input, an id given again gets no second decision but a reject naming the first row, as a
+    file's second row with the same id does (`rows` are the records' row or line numbers)."""
+    seen: dict[str, int] = {}
+    keep: list[ItemRecord] = []
+    dupes: list[Reject] = []
+    for r, row in zip(records, rows, strict=True):
+        if r.item_id in seen:
+            dupes.append(Reject(row=row, field=id_field, reason=f"duplicate of row {seen[r.item_id]}",
+                                raw={id_field: r.item_id}))
+            continue
+        seen[r.item_id] = row
+        keep.append(r)
+    return keep, dupes
+
+
 def route_file(ws: Workspace, path: Path | str) -> tuple[list[dict[str, Any]], IngestResult, int]:
     """Route every good row of a file; rows whose id is stored with other fields are left out, with a
     warning naming them (give a changed item a new id)."""
