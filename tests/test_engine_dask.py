@@ -1,14 +1,19 @@
 """The Dask engine on a real local cluster of two worker processes: the same model, array for array.
 
-Reference: `NaiveBayes.fit` on all items in one process (the definition the cluster must reproduce), and the
-in-process engine for out-of-fold scores. One cluster is started for the whole module (a start costs seconds).
+Reference: `NaiveBayes.fit` on all items in one process (the definition the cluster must reproduce), the
+in-process engine for out-of-fold scores, training and routing in this process for the application-level
+checks, and pyarrow reading back the Parquet decisions. One cluster serves the whole module (a start costs
+seconds).
 """
 
 from __future__ import annotations
 
+import json
+import re
 from pathlib import Path
 
 import numpy as np
+import pyarrow.parquet as pq
 import pytest
 
 from demo_corpus.generate import generate
@@ -16,10 +21,14 @@ from triage.config import load_config
 from triage.core.model import ModelSpec, NaiveBayes
 from triage.engine import InProcessEngine
 from triage.engine.history import History
+from triage.ingest import read_items
 
 distributed = pytest.importorskip("dask.distributed")
 
+from tests.helpers import build_demo_workspace, copy_workspace  # noqa: E402
 from tests.test_engine import assert_same_model  # noqa: E402
+from triage.app import Workspace  # noqa: E402
+from triage.cli import main  # noqa: E402
 from triage.engine.cluster import DaskEngine  # noqa: E402
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -61,3 +70,45 @@ def test_cluster_model_equals_one_process(engine, tickets) -> None:
     for ours, ref in zip(h.out_of_fold_jll(specs, folds), local.out_of_fold_jll(specs, folds), strict=True):
         np.testing.assert_array_equal(ours, ref)
     h.close()
+
+
+# ----- the application on the cluster ---------------------------------------------------------------------------
+@pytest.fixture(scope="module")
+def trained(tmp_path_factory):
+    return build_demo_workspace(tmp_path_factory.mktemp("cluster") / "ws", rows=800)
+
+
+def test_train_on_the_cluster_equals_training_here(engine, trained, tmp_path) -> None:
+    ws_dir = copy_workspace(trained, tmp_path)
+    config = ws_dir / "triage.toml"  # the settings grid too: text model and smoothing chosen by cross-validation
+    config.write_text(config.read_text(encoding="utf-8").replace('text_model = "multinomial"', 'text_model = "auto"')
+                      .replace("alpha_text = 1.0", 'alpha_text = "auto"'), encoding="utf-8")
+    with Workspace.open(ws_dir) as ws:
+        here = ws.train(engine=InProcessEngine())
+        model_here, policy_here = ws.model, ws.policy
+        there = ws.train(engine=engine)
+        assert there.version.version == here.version.version + 1
+        assert_same_model(ws.model, model_here)
+        assert ws.policy.to_dict() == policy_here.to_dict()
+        assert there.selection == here.selection and len(there.selection) == 12
+        assert there.measurement.scorecard.to_dict() == here.measurement.scorecard.to_dict()
+
+
+def test_route_on_the_cluster_writes_parquet_and_stores_the_run(engine, trained, tmp_path, capsys) -> None:
+    ws_dir = copy_workspace(trained, tmp_path)
+    incoming = ROOT / "demo_corpus" / "voltwren_incoming.csv"
+    with Workspace.open(ws_dir) as ws:
+        expected = ws.decide_records(read_items(incoming, ws.config.schema, require_label=False).records)
+    address = engine.client.scheduler.address
+    assert main(["route", str(incoming), "-w", str(ws_dir), "--json", "--engine", "dask",
+                 "--scheduler", address]) == 0
+    captured = capsys.readouterr()
+    decisions = [json.loads(line) for line in captured.out.splitlines()]
+    assert decisions == expected and len(decisions) == 500  # the same decisions, evidence included, in order
+    run = int(re.search(r"run-(\d+)\.parquet", captured.err).group(1))
+    table = pq.read_table(ws_dir / "runs" / f"run-{run}.parquet")
+    assert table.num_rows == 500 and table.to_pylist() == expected
+    with Workspace.open(ws_dir) as ws:
+        stored = ws.store.decisions(batch_id=run, limit=1000)
+        assert sorted(d.item_id for d in stored) == sorted(d["id"] for d in expected)
+    assert main(["route", str(incoming), "-w", str(ws_dir), "--scheduler", address]) == 2  # needs --engine dask

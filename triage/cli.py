@@ -213,18 +213,32 @@ def cmd_import(args: argparse.Namespace) -> int:
     return 0
 
 
-def _train(ws: Workspace, as_json: bool) -> Any:
+def _train(ws: Workspace, as_json: bool, args: argparse.Namespace | None = None) -> Any:
     update, stop = _progress_cb(not as_json and err.is_terminal)
     try:
-        rep = ws.train(progress=update)
+        rep = ws.train(progress=update, **_engine_options(args))
     finally:
         stop()
     return rep
 
 
+def _add_engine_options(sp: argparse.ArgumentParser) -> None:
+    sp.add_argument("--engine", choices=["local", "dask"], default="local",
+                    help="where to count or decide: local (this process, default) or dask (a cluster)")
+    sp.add_argument("--scheduler", metavar="ADDRESS",
+                    help="a running Dask scheduler, e.g. tcp://10.0.0.5:8786 (default: a local cluster)")
+    sp.add_argument("--workers", type=int, help="worker processes of the local cluster (default: one per core)")
+
+
+def _engine_options(args: argparse.Namespace | None) -> dict[str, Any]:
+    if args is None or getattr(args, "engine", "local") == "local" and not getattr(args, "scheduler", None):
+        return {}
+    return {"engine": args.engine, "scheduler": args.scheduler, "workers": args.workers}
+
+
 def cmd_train(args: argparse.Namespace) -> int:
     with _ws(args) as ws:
-        rep = _train(ws, args.json)
+        rep = _train(ws, args.json, args)
         meas = rep.measurement
         data = {"version": rep.version.version, "items": rep.n_items, "seconds": round(rep.seconds, 2),
                 "spec": meas.spec.to_dict(), "selection": rep.selection, "cutoffs": meas.cutoffs,
@@ -359,7 +373,10 @@ def cmd_route(args: argparse.Namespace) -> int:
             errors += [_clash_record("<stdin>", item_id) for item_id in sorted(clash)]
             decisions, batch = ws.route_records([r for r in records if r.item_id not in clash], source="<stdin>")
         else:
-            decisions, result, batch = ws.route_file(args.file)
+            decisions, result, batch = ws.route_file(args.file, **_engine_options(args))
+            if getattr(args, "engine", "local") != "local":
+                err.print(f"decisions also written to {ws.root / 'runs' / f'run-{batch}.parquet'}", markup=False,
+                          soft_wrap=True)
             src = Path(args.file).name
             errors = [_error_record(src, rj, id_field) for rj in result.rejects]
             for w in result.warnings[:25]:
@@ -684,7 +701,7 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("--force", action="store_true", help="replace an existing triage.toml")
     sp = add("import", cmd_import, "import labelled items from a CSV, JSONL or Parquet file")
     sp.add_argument("file", help="the file to import; rejected rows go to FILE.rejects.csv beside it")
-    add("train", cmd_train, "train a new model version on every labelled item and activate it")
+    _add_engine_options(add("train", cmd_train, "train a new model version on every labelled item and activate it"))
     sp = add("evaluate", cmd_evaluate, "score the active settings on the newest items: confusion matrix, per-queue "
              "precision/recall at the cutoffs, coverage, reliability of the confidences")
     sp.add_argument("--split", choices=["time", "kfold"], default="time",
@@ -693,6 +710,7 @@ def build_parser() -> argparse.ArgumentParser:
     sp = add("route", cmd_route, "decide a queue (or hold for review) for each item; JSON Lines on stdout")
     sp.add_argument("file", help="a CSV/JSONL/Parquet file, or - for JSON Lines on stdin")
     sp.add_argument("--follow", action="store_true", help="decide each JSON line as soon as it arrives")
+    _add_engine_options(sp)
     sp = add("explain", cmd_explain, "show the evidence for and against one item's decision")
     sp.add_argument("id", help="the item id")
     sp.add_argument("--top", type=int, default=10, help="terms to show on each side (default 10)")

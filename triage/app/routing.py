@@ -11,6 +11,7 @@ import numpy as np
 
 from triage.app.active import ActiveModel, require_model
 from triage.app.decisions import RoutingDecision
+from triage.app.errors import BadInput
 from triage.core.encode import EncodedBatch
 from triage.core.evidence import strongest_batch
 from triage.core.metrics import population_stability_index
@@ -41,11 +42,14 @@ def _decision(active: ActiveModel, rec: ItemRecord, verdict: Verdict, terms: Seq
 
 def watch_word_hits(ws: Workspace, records: Sequence[ItemRecord]) -> list[list[str]] | None:
     """Watch-word hits per item, on the plain words of every text field (None when no queue has any)."""
-    watch = ws.config.watch_words()
+    return hits_for(ws.config.watch_words(), [f.name for f in ws.config.schema.text_fields], records)
+
+
+def hits_for(watch: Any, text_fields: Sequence[str], records: Sequence[ItemRecord]) -> list[list[str]] | None:
+    """Watch-word hits of `watch` (the config's watch words) on the named text fields' plain words."""
     if not watch:
         return None
-    names = [f.name for f in ws.config.schema.text_fields]
-    return [watch_hits({w for n in names for w in plain_words(r.fields.get(n))}, watch) for r in records]
+    return [watch_hits({w for n in text_fields for w in plain_words(r.fields.get(n))}, watch) for r in records]
 
 
 def verdicts_for(ws: Workspace, records: Sequence[ItemRecord]) -> list[Verdict]:
@@ -67,18 +71,24 @@ def decide_with_batch(ws: Workspace,
         active = require_model(ws)
         if not records:
             return [], None
-        model = active.model
-        batch = model.encoder.transform([r.fields for r in records], allow_missing=True, keep_unknown=True)
-        probs = active.policy.calibrated(model.joint_log_likelihood(batch))
-        verdicts = decide(probs, model.queues, active.policy, watch_word_hits(ws, records))
-        top = np.array([v.top_index for v in verdicts])
-        runner = np.array([v.runner_up_index for v in verdicts])
-        evidence = strongest_batch(model, batch, top, runner, EVIDENCE_TERMS) if len(model.queues) > 1 \
-            else [[] for _ in records]
-        unknown = batch.unknown or tuple(() for _ in records)
-        decisions = [_decision(active, r, v, ev, unk)
-                     for r, v, ev, unk in zip(records, verdicts, evidence, unknown, strict=True)]
-        return decisions, batch
+        return decide_batch(active, records, watch_word_hits(ws, records))
+
+
+def decide_batch(active: ActiveModel, records: Sequence[ItemRecord],
+                 hits: list[list[str]] | None) -> tuple[list[RoutingDecision], EncodedBatch]:
+    """The decisions of one batch by one active model (no workspace needed: a cluster worker runs this too)."""
+    model = active.model
+    batch = model.encoder.transform([r.fields for r in records], allow_missing=True, keep_unknown=True)
+    probs = active.policy.calibrated(model.joint_log_likelihood(batch))
+    verdicts = decide(probs, model.queues, active.policy, hits)
+    top = np.array([v.top_index for v in verdicts])
+    runner = np.array([v.runner_up_index for v in verdicts])
+    evidence = strongest_batch(model, batch, top, runner, EVIDENCE_TERMS) if len(model.queues) > 1 \
+        else [[] for _ in records]
+    unknown = batch.unknown or tuple(() for _ in records)
+    decisions = [_decision(active, r, v, ev, unk)
+                 for r, v, ev, unk in zip(records, verdicts, evidence, unknown, strict=True)]
+    return decisions, batch
 
 
 def decisions_for(ws: Workspace, records: Sequence[ItemRecord]) -> list[RoutingDecision]:
@@ -97,16 +107,21 @@ def route_records(ws: Workspace, records: Sequence[ItemRecord], source: str) -> 
     with ws.lock:  # the summary reads the same model the decisions came from
         decisions, batch = decide_with_batch(ws, records)
         summary = run_summary(ws, decisions, batch)
-    rows = [Decision(item_id=d.id, model_version=d.model_version, queue=d.queue, suggested=d.suggested,
-                     confidence=d.confidence, held=d.held, runner_up=d.runner_up, evidence=d.evidence,
-                     held_by=d.held_by.value if d.held_by else None, reason=d.reason,
-                     runner_up_confidence=d.runner_up_confidence) for d in decisions]
+    rows = stored_rows(decisions)
     # decisions can be made again from the stored items: a power cut may lose the newest run, a crash not
     with ws.store.transaction(durable=False):
         ws.store.import_items([ItemRecord(r.item_id, r.fields, None, r.arrived_at) for r in records],
                               source=source)
         run_id = ws.store.record_batch(source, rows, summary)
     return [d.to_dict() for d in decisions], run_id
+
+
+def stored_rows(decisions: Sequence[RoutingDecision]) -> list[Decision]:
+    """The store's rows of a run's decisions."""
+    return [Decision(item_id=d.id, model_version=d.model_version, queue=d.queue, suggested=d.suggested,
+                     confidence=d.confidence, held=d.held, runner_up=d.runner_up, evidence=d.evidence,
+                     held_by=d.held_by.value if d.held_by else None, reason=d.reason,
+                     runner_up_confidence=d.runner_up_confidence) for d in decisions]
 
 
 def stored_with_other_fields(ws: Workspace, records: Sequence[ItemRecord]) -> set[str]:
@@ -133,9 +148,15 @@ def first_of_each_id(records: Sequence[ItemRecord], rows: Sequence[int],
     return keep, dupes
 
 
-def route_file(ws: Workspace, path: Path | str) -> tuple[list[dict[str, Any]], IngestResult, int]:
+def route_file(ws: Workspace, path: Path | str, *, engine: str | None = None, scheduler: str | None = None,
+               workers: int | None = None) -> tuple[list[dict[str, Any]], IngestResult, int]:
     """Route every good row of a file; rows whose id is stored with other fields are left out, with a
-    warning naming them (give a changed item a new id)."""
+    warning naming them (give a changed item a new id).
+
+    With `engine="dask"` the items are decided in partitions on a cluster (triage.app.partitioned), and the
+    decisions are also written as Parquet to runs/run-<run id>.parquet in the workspace."""
+    if scheduler and engine in (None, "local"):
+        raise BadInput("--scheduler needs --engine dask")
     result = read_items(path, ws.config.schema, require_label=False, max_text_chars=ws.config.max_text_chars,
                         rejects_dir=ws.rejects_dir)
     clash = stored_with_other_fields(ws, result.records)
@@ -151,21 +172,28 @@ def route_file(ws: Workspace, path: Path | str) -> tuple[list[dict[str, Any]], I
         shown = ", ".join(sorted(clash)[:10]) + (" ..." if len(clash) > 10 else "")
         result.warnings.append(f"{path}: {len(clash)} item(s) not routed: already stored with other field "
                                f"values (give a changed item a new id): {shown}")
-    decisions, run_id = route_records(ws, result.records, source=str(path))
+    if engine not in (None, "local"):
+        from triage.app.partitioned import route_on_engine
+
+        decisions, run_id = route_on_engine(ws, result.records, str(path), engine, scheduler, workers)
+    else:
+        decisions, run_id = route_records(ws, result.records, source=str(path))
     return decisions, result, run_id
 
 
-def run_summary(ws: Workspace, decisions: Sequence[RoutingDecision], batch: EncodedBatch | None) -> dict[str, Any]:
+def run_summary(ws: Workspace, decisions: Sequence[RoutingDecision], batch: EncodedBatch | None,
+                words: tuple[int, int] | None = None) -> dict[str, Any]:
     """Counts per queue and drift figures: the share of each item's distinct words never seen in training,
-    and the shift of the predicted queue mix against the training mix (population stability index)."""
+    and the shift of the predicted queue mix against the training mix (population stability index).
+    `words` (unseen, known) stands in for `batch` when the run was decided in partitions elsewhere."""
     active = require_model(ws)
     n = len(decisions)
     routed = sum(1 for d in decisions if not d.held)
     per_queue: dict[str, int] = {}
     for d in decisions:
         per_queue[d.suggested] = per_queue.get(d.suggested, 0) + 1
-    unseen = sum(len(u) for u in batch.unknown) if batch is not None and batch.unknown else 0
-    total = unseen + (batch.X.nnz if batch is not None else 0)
+    unseen, known = words if words is not None else word_counts(batch)
+    total = unseen + known
     queues = active.model.queues
     expected = active.model.counts.class_count_
     actual = np.array([per_queue.get(q, 0) for q in queues], dtype=float)
@@ -173,6 +201,13 @@ def run_summary(ws: Workspace, decisions: Sequence[RoutingDecision], batch: Enco
     return {"n": n, "routed": routed, "held": n - routed, "coverage": routed / n if n else 0.0,
             "per_queue": per_queue, "unseen_word_share": unseen / total if total else 0.0,
             "queue_mix_psi": psi, "drift_flag": bool(psi > PSI_FLAG)}
+
+
+def word_counts(batch: EncodedBatch | None) -> tuple[int, int]:
+    """(distinct unseen words, stored known-token entries) of a decided batch, for the drift figure."""
+    if batch is None:
+        return 0, 0
+    return (sum(len(u) for u in batch.unknown) if batch.unknown else 0), int(batch.X.nnz)
 
 
 def records_from_dicts(rows: Iterable[dict[str, Any]]) -> list[ItemRecord]:

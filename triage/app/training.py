@@ -40,8 +40,19 @@ from triage.core.measure import fit_policy as fit_policy_rules
 from triage.core.metrics import scorecard
 from triage.core.model import ModelSpec, NaiveBayes
 from triage.core.routing import RoutingPolicy, decide
-from triage.core.selection import fit_rows, n_folds_for, out_of_fold_jll, quick_grid, select, subset
+from triage.core.selection import (
+    SettingScore,
+    best_setting,
+    fit_rows,
+    n_folds_for,
+    out_of_fold_jll,
+    quick_grid,
+    score_jll,
+    subset,
+)
 from triage.core.tokens import Tokenizer
+from triage.engine import Engine, InProcessEngine, open_engine
+from triage.engine.history import History, stratified_folds
 from triage.records import ItemRecord
 from triage.store import ModelVersion
 from triage.store.artifacts import save_model
@@ -159,28 +170,38 @@ def encode(ws: Workspace, spec: ModelSpec, items: Sequence[dict[str, Any]]) -> t
 
 def measure(ws: Workspace, spec: ModelSpec, recs: Sequence[ItemRecord] | None = None,
             progress: Progress | None = None,
-            encoded: tuple[Encoder, EncodedBatch] | None = None) -> Measurement:
+            encoded: tuple[Encoder, EncodedBatch] | None = None, history: History | None = None) -> Measurement:
     """Calibrate and choose cutoffs on out-of-fold scores of the older items, then score the newest
     `TEST_SHARE` of items (by arrival time) with a model that never saw them: routing's real use.
 
-    `encoded` is the older items' encoding when the caller has it already (same tokenizer settings)."""
+    `encoded` is the older items' encoding when the caller has it already (same tokenizer settings);
+    `history` holds `recs` tokenised once on an engine (older items first), and then the folds, the model and
+    the scores all come from its count tables (the same numbers; see triage.engine.history)."""
     say = progress or (lambda _s, _f: None)
     recs = list(recs) if recs is not None else labelled(ws)
     older, newer, split = test_split(recs)
     labels = [r.label or "" for r in older]
     say("tokenising", 0.1)
-    enc, batch = encoded if encoded is not None else encode(ws, spec, [r.fields for r in older])
+    if history is None:
+        enc, batch = encoded if encoded is not None else encode(ws, spec, [r.fields for r in older])
     say("calibrating on out-of-fold scores", 0.3)
-    oof, queues = out_of_fold_jll(enc, batch, labels, spec, folds=5)
+    if history is not None:
+        oof = history.out_of_fold_jll([spec], stratified_folds(labels, 5))[0]
+        queues = history.queues("older")
+    else:
+        oof, queues = out_of_fold_jll(enc, batch, labels, spec, folds=5)
     qi = {q: i for i, q in enumerate(queues)}
     y = np.array([qi[lab] for lab in labels])
     say("choosing cutoffs", 0.5)
     policy, calibration, cutoff_info = fit_policy(ws.config, oof, y, queues)
     never, cutoffs = policy.never_auto, dict(policy.cutoffs)
     say("scoring the newest items", 0.7)
-    model = fit_rows(enc, batch, labels, np.arange(len(labels)), spec, queues)
-    test_batch = enc.transform([r.fields for r in newer], allow_missing=True)
-    test_jll = model.joint_log_likelihood(test_batch)
+    if history is not None:
+        model = history.model(spec, "older")
+        test_jll = history.joint_log_likelihood(model, "newer")
+    else:
+        model = fit_rows(enc, batch, labels, np.arange(len(labels)), spec, queues)
+        test_jll = model.joint_log_likelihood(enc.transform([r.fields for r in newer], allow_missing=True))
     probs = policy.calibrated(test_jll)
     hits = watch_word_hits(ws, newer)
     verdicts = decide(probs, model.queues, policy, hits)
@@ -273,8 +294,26 @@ def measure_kfold(ws: Workspace, spec: ModelSpec, recs: Sequence[ItemRecord] | N
 
 
 def train(ws: Workspace, *, progress: Progress | None = None, cancel: Callable[[], bool] | None = None,
-          note: str = "") -> TrainReport:
-    """Choose settings (unless the config pins them), measure, fit on every labelled item, activate."""
+          note: str = "", engine: str | Engine | None = None, scheduler: str | None = None,
+          workers: int | None = None) -> TrainReport:
+    """Choose settings (unless the config pins them), measure, fit on every labelled item, activate.
+
+    The labelled items are tokenised once (triage.engine.history): the settings grid, the measurement's folds
+    and the final model are all counted from those token ids, by partition, on `engine` ("local", the
+    default, in this process; "dask" on a cluster at `scheduler`, or on a local one of `workers` processes).
+    Every engine gives the same model, array for array."""
+    if engine is None or isinstance(engine, str):
+        try:
+            opened = open_engine(engine or "local", scheduler, workers)
+        except ValueError as e:
+            raise BadInput(str(e)) from None
+        with opened:
+            return _train(ws, opened, progress, cancel, note)
+    return _train(ws, engine, progress, cancel, note)
+
+
+def _train(ws: Workspace, engine: Engine, progress: Progress | None, cancel: Callable[[], bool] | None,
+           note: str) -> TrainReport:
     t0 = time.perf_counter()
     say = progress or (lambda _s, _f: None)
 
@@ -291,7 +330,7 @@ def train(ws: Workspace, *, progress: Progress | None = None, cancel: Callable[[
         mark = (min(pending) - 1) if pending else max((c.id for c in journal), default=0)
     notes: list[str] = []
     with library_warnings([r.label or "" for r in recs], notes):
-        model, measurement, selection, base = _fit(ws, recs, say, check)
+        model, measurement, selection, base = _fit(ws, engine, recs, say, check)
     say("saving", 0.95)
     version = save_trained(ws, model, recs, measurement, selection, note or "trained", kind="train",
                            corrections_after=mark)
@@ -300,38 +339,45 @@ def train(ws: Workspace, *, progress: Progress | None = None, cancel: Callable[[
                        ws.config_warnings({r.label or "" for r in recs}) + notes)
 
 
-def _fit(ws: Workspace, recs: list[ItemRecord], say: Progress,
+def _fit(ws: Workspace, engine: Engine, recs: list[ItemRecord], say: Progress,
          check: Callable[[], None]) -> tuple[NaiveBayes, Measurement, list[dict[str, Any]], ModelSpec]:
     """Choose settings (unless pinned), measure, and fit the final model on every labelled item."""
     base = spec_from_config(ws.config)
     selection: list[dict[str, Any]] = []
-    encoded: tuple[Encoder, EncodedBatch] | None = None
-    m = ws.config.model
-    if m.text_model == "auto" or m.alpha_text == "auto":
-        specs = [s for s in quick_grid(base)
-                 if (m.text_model == "auto" or s.text_model == m.text_model)
-                 and (m.alpha_text == "auto" or s.alpha_text == float(m.alpha_text))]
-        older, _, _ = test_split(recs)
-        enc, batch = encode(ws, base, [r.fields for r in older])
-        encoded = (enc, batch)  # the grid varies only the text model and alpha: measure reuses this pass
+    older, newer, _ = test_split(recs)
+    ordered = [*older, *newer]  # the history's rows: the measurement's older items first
+    labels = [r.label or "" for r in ordered]
+    say("tokenising" if isinstance(engine, InProcessEngine) else f"tokenising on {engine.describe()}", 0.02)
+    history = History(engine, ws.config.schema, base, [r.fields for r in ordered], labels, n_older=len(older))
+    try:
+        m = ws.config.model
+        if m.text_model == "auto" or m.alpha_text == "auto":
+            specs = [s for s in quick_grid(base)
+                     if (m.text_model == "auto" or s.text_model == m.text_model)
+                     and (m.alpha_text == "auto" or s.alpha_text == float(m.alpha_text))]
+            check()
+            say(f"comparing {len(specs)} settings by cross-validation", 0.05)
+
+            def step(i: int, spec: ModelSpec) -> None:
+                check()  # cancelling takes effect between settings, not only between stages
+                say(f"setting {i + 1}/{len(specs)}: {spec.text_model}, alpha {spec.alpha_text:g}",
+                    0.05 + 0.05 * i / len(specs))
+
+            older_labels = labels[: len(older)]
+            jlls = history.out_of_fold_jll(specs, stratified_folds(older_labels, 3), before_each=step)
+            queues = history.queues("older")
+            scores = [SettingScore(spec, *score_jll(jll, queues, older_labels))
+                      for spec, jll in zip(specs, jlls, strict=True)]
+            best = best_setting(scores)
+            selection = [s.to_dict() for s in scores]
+            base = best.spec
         check()
-        say(f"comparing {len(specs)} settings by cross-validation", 0.05)
-
-        def step(i: int, spec: ModelSpec) -> None:
-            check()  # cancelling takes effect between settings, not only between stages
-            say(f"setting {i + 1}/{len(specs)}: {spec.text_model}, alpha {spec.alpha_text:g}",
-                0.05 + 0.05 * i / len(specs))
-
-        best, scores = select(enc, batch, [r.label or "" for r in older], specs, folds=3, before_each=step)
-        selection = [s.to_dict() for s in scores]
-        base = best.spec
-    check()
-    measurement = measure(ws, base, recs, progress=lambda s, f: say(s, 0.1 + 0.6 * f), encoded=encoded)
-    check()
-    say("fitting the final model on every item", 0.8)
-    items = [r.fields for r in recs]
-    labels = [r.label or "" for r in recs]
-    model = NaiveBayes.fit(ws.config.schema, items, labels, base)
+        measurement = measure(ws, base, recs, progress=lambda s, f: say(s, 0.1 + 0.6 * f), history=history)
+        check()
+        say("fitting the final model on every item", 0.8)
+        model = history.model(base, "all")
+    finally:
+        history.close()
     check()
     return model, measurement, selection, base
 

@@ -20,7 +20,7 @@ from __future__ import annotations
 
 from array import array
 from collections import Counter
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -31,6 +31,7 @@ from triage.core.counts import CountTables, merged
 from triage.core.encode import EncodedBatch, Encoder
 from triage.core.model import ModelSpec, NaiveBayes
 from triage.core.schema import Schema
+from triage.core.selection import n_folds_for
 from triage.core.tokens import Tokenizer
 from triage.engine.base import PARTITION_ROWS, Engine, partition_bounds
 from triage.engine.vocabulary import VocabularyCounts
@@ -172,6 +173,19 @@ def _jll(part: EncodedPart, job: tuple[list[NaiveBayes], np.ndarray | None]) -> 
     return out
 
 
+def stratified_folds(labels: Sequence[str], wanted: int, seed: int = 0) -> np.ndarray:
+    """A fold number per row: the folds core.selection.out_of_fold_jll uses (as many as the rarest queue
+    allows, stratified, shuffled with `seed`)."""
+    from sklearn.model_selection import StratifiedKFold
+
+    y = np.asarray(labels)
+    folds = np.empty(len(y), dtype=np.int64)
+    splitter = StratifiedKFold(n_splits=n_folds_for(labels, wanted), shuffle=True, random_state=seed)
+    for f, (_, test) in enumerate(splitter.split(np.zeros(len(y)), y)):
+        folds[test] = f
+    return folds
+
+
 # ----- what the driver does ------------------------------------------------------------------------------------
 class History:
     """Labelled items in arrival order on an engine; rows [0, n_older) are the older items a measurement fits on.
@@ -264,8 +278,8 @@ class History:
         out = list(self.engine.results(self.engine.run(_jll, parts, shared=self.engine.share(([model], None)))))
         return np.vstack(out) if out else np.empty((0, model.counts.n_queues))
 
-    def out_of_fold_jll(self, specs: Sequence[ModelSpec], folds: np.ndarray,
-                        which: str = "older") -> list[np.ndarray]:
+    def out_of_fold_jll(self, specs: Sequence[ModelSpec], folds: np.ndarray, which: str = "older",
+                        before_each: Callable[[int, ModelSpec], None] | None = None) -> list[np.ndarray]:
         """Out-of-fold joint log-likelihoods of the rows of `which` for each setting; `folds` holds a fold
         number per row of `which` (0..k-1). Columns in sorted queue order; equals
         core.selection.out_of_fold_jll with the same folds."""
@@ -277,7 +291,9 @@ class History:
         enc = self.encoder if which == "all" else self.older_encoder
         out: list[np.ndarray] = []
         by_transform: dict[tuple[bool, bool], list[CountTables]] = {}
-        for spec in specs:
+        for i, spec in enumerate(specs):
+            if before_each is not None:
+                before_each(i, spec)
             if spec.idf:  # each fold's training part has its own idf: count it directly
                 models = []
                 for f in range(k):
