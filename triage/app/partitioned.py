@@ -19,9 +19,9 @@ import pyarrow.parquet as pq
 
 from triage.app.active import ActiveModel, require_model
 from triage.app.decisions import RoutingDecision
-from triage.app.errors import BadInput
+from triage.app.errors import BadInput, WorkspaceError
 from triage.app.routing import decide_batch, hits_for, run_summary, stored_rows, word_counts
-from triage.engine import PARTITION_ROWS, Engine, open_engine, partition_bounds
+from triage.engine import PARTITION_ROWS, Engine, EngineError, open_engine, partition_bounds
 from triage.records import ItemRecord
 
 if TYPE_CHECKING:
@@ -65,8 +65,18 @@ def route_on_engine(ws: Workspace, records: Sequence[ItemRecord], source: str, e
             opened = open_engine(engine, scheduler, workers)
         except ValueError as e:
             raise BadInput(str(e)) from None
+        except EngineError as e:
+            raise WorkspaceError(f"nothing routed: {e}") from e
         with opened:
             return route_on_engine(ws, records, source, opened, rows=rows)
+    try:
+        return _route(ws, records, source, engine, rows)
+    except EngineError as e:  # nothing was stored
+        raise WorkspaceError(f"nothing routed: {e}") from e
+
+
+def _route(ws: Workspace, records: Sequence[ItemRecord], source: str, engine: Engine,
+           rows: int) -> tuple[list[dict[str, Any]], int]:
     with ws.lock:
         active = require_model(ws)
     # the item -> queue map of the training set stays here: workers only decide

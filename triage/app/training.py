@@ -22,7 +22,7 @@ from triage.app.active import (
     require_model,
 )
 from triage.app.decisions import TrainReport
-from triage.app.errors import BadInput, Cancelled
+from triage.app.errors import BadInput, Cancelled, WorkspaceError
 from triage.app.routing import watch_word_hits
 from triage.config import Config
 from triage.core.calibrate import softmax_rows
@@ -51,7 +51,7 @@ from triage.core.selection import (
     subset,
 )
 from triage.core.tokens import Tokenizer
-from triage.engine import Engine, InProcessEngine, open_engine
+from triage.engine import Engine, EngineError, InProcessEngine, open_engine
 from triage.engine.history import History, stratified_folds
 from triage.records import ItemRecord
 from triage.store import ModelVersion
@@ -302,14 +302,17 @@ def train(ws: Workspace, *, progress: Progress | None = None, cancel: Callable[[
     and the final model are all counted from those token ids, by partition, on `engine` ("local", the
     default, in this process; "dask" on a cluster at `scheduler`, or on a local one of `workers` processes).
     Every engine gives the same model, array for array."""
-    if engine is None or isinstance(engine, str):
-        try:
-            opened = open_engine(engine or "local", scheduler, workers)
-        except ValueError as e:
-            raise BadInput(str(e)) from None
-        with opened:
-            return _train(ws, opened, progress, cancel, note)
-    return _train(ws, engine, progress, cancel, note)
+    try:
+        if engine is None or isinstance(engine, str):
+            try:
+                opened = open_engine(engine or "local", scheduler, workers)
+            except ValueError as e:
+                raise BadInput(str(e)) from None
+            with opened:
+                return _train(ws, opened, progress, cancel, note)
+        return _train(ws, engine, progress, cancel, note)
+    except EngineError as e:  # nothing was saved: the active model is unchanged
+        raise WorkspaceError(f"training not finished: {e}") from e
 
 
 def _train(ws: Workspace, engine: Engine, progress: Progress | None, cancel: Callable[[], bool] | None,

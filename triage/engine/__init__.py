@@ -7,7 +7,7 @@ exactly (see triage.core.counts).
 
 from __future__ import annotations
 
-from triage.engine.base import PARTITION_ROWS, Engine, InProcessEngine, partition_bounds
+from triage.engine.base import PARTITION_ROWS, Engine, EngineError, InProcessEngine, partition_bounds
 
 ENGINES = ("local", "dask")
 
@@ -25,4 +25,4 @@ def open_engine(name: str = "local", scheduler: str | None = None, n_workers: in
     raise ValueError(f"unknown engine {name!r} (one of: {', '.join(ENGINES)})")
 
 
-__all__ = ["ENGINES", "PARTITION_ROWS", "Engine", "InProcessEngine", "open_engine", "partition_bounds"]
+__all__ = ["ENGINES", "PARTITION_ROWS", "Engine", "EngineError", "InProcessEngine", "open_engine", "partition_bounds"]

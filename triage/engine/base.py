@@ -30,6 +30,10 @@ def partition_bounds(n: int, rows: int = PARTITION_ROWS, at_least: int = 1) -> l
     return [(lo, min(lo + step, n)) for lo in range(0, n, step)]
 
 
+class EngineError(RuntimeError):
+    """The engine could not start, reach its cluster, or lost a worker's partitions."""
+
+
 class Engine(ABC):
     """Runs a function on each partition; results come back in partition order."""
 

@@ -14,11 +14,7 @@ import os
 from collections.abc import Callable, Iterator, Sequence
 from typing import Any
 
-from triage.engine.base import Engine
-
-
-class EngineError(RuntimeError):
-    """The cluster could not be reached or started."""
+from triage.engine.base import Engine, EngineError
 
 
 class DaskEngine(Engine):
@@ -62,8 +58,15 @@ class DaskEngine(Engine):
         return self.client.map(fn, list(handles), [shared] * len(handles), pure=False)
 
     def results(self, handles: Sequence[Any]) -> Iterator[Any]:
+        from concurrent.futures import CancelledError  # what a future whose data died with its worker raises
+
+        from distributed.comm import CommClosedError
+
         for h in handles:
-            yield h.result()
+            try:
+                yield h.result()
+            except (CancelledError, CommClosedError, OSError) as e:  # a worker died with partitions only it held
+                raise EngineError(f"the Dask cluster lost a partition ({e}); run the command again") from e
 
     def release(self, handles: Sequence[Any]) -> None:
         for h in handles:
