@@ -9,6 +9,7 @@ mentions smoke costs far more than a second look.
 
 from __future__ import annotations
 
+import functools
 import unicodedata
 from collections.abc import Collection, Mapping, Sequence
 from dataclasses import dataclass, field
@@ -118,13 +119,17 @@ def watch_hits(words: Collection[str], watch_words: Mapping[str, Sequence[str]])
 
     An entry is one or more word starts ("burn", "carbon monox", "self-harm", "can't breathe"), split into words
     the same way as the text: it matches when every one of its parts starts one of the item's words."""
-    hits = []
-    for queue, entries in watch_words.items():
-        for entry in entries:
-            parts = plain_words(entry)
-            if parts and all(any(tok.startswith(p) for tok in words) for p in parts):
-                hits.append(f"{queue}: {entry}")
-    return hits
+    parsed = [(queue, entry, _entry_parts(entry)) for queue, entries in watch_words.items() for entry in entries]
+    # "a word starts with p" is "p is the word's prefix of len(p)": one set of the prefixes of the lengths the
+    # entries use, instead of every word against every entry (routing a batch calls this once per item)
+    lengths = {len(p) for _, _, parts in parsed for p in parts}
+    starts = {w[:k] for w in words for k in lengths if len(w) >= k}
+    return [f"{queue}: {entry}" for queue, entry, parts in parsed if parts and all(p in starts for p in parts)]
+
+
+@functools.lru_cache(maxsize=4096)
+def _entry_parts(entry: str) -> tuple[str, ...]:
+    return tuple(plain_words(entry))
 
 
 def decide(probs: np.ndarray, queues: list[str], policy: RoutingPolicy,

@@ -25,12 +25,13 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
+import pandas as pd
 import scipy.sparse as sp
 
 from triage.core.counts import CountTables, merged
-from triage.core.encode import EncodedBatch, Encoder
+from triage.core.encode import MISSING, EncodedBatch, Encoder, _is_missing, _number
 from triage.core.model import ModelSpec, NaiveBayes
-from triage.core.schema import Schema
+from triage.core.schema import FieldRole, Schema
 from triage.core.selection import n_folds_for
 from triage.core.tokens import Tokenizer
 from triage.engine.base import PARTITION_ROWS, Engine, partition_bounds
@@ -46,7 +47,7 @@ class TokenisedPart:
     terms: list[str]
     X: sp.csr_matrix  # (rows, len(terms)), the field weights applied, provisional column ids
     occurrences: np.ndarray  # unweighted occurrences per provisional term (what min_count reads)
-    values: list[dict[str, Any]]  # the value fields only (the text is no longer needed)
+    values: dict[str, Any]  # per value field: category keys or numbers (NaN: missing); the text is gone
     labels: list[str]
     vocabulary: VocabularyCounts
 
@@ -61,36 +62,45 @@ class EncodedPart:
 
 
 def _tokenise(part: tuple[int, list[dict[str, Any]], list[str]], template: Encoder) -> TokenisedPart:
-    """The one pass over a partition's text (the same token walk as Encoder.fit_transform, with occurrences)."""
+    """The one pass over a partition's text: the encoder's tokens of every text field, weighted by the field.
+
+    The tokens of the whole partition go into one list and are numbered by pandas' hash factorisation (in C),
+    so the Python work per token is the tokenizer's alone; repeated tokens of one item are summed by the sparse
+    constructor. The counts equal Encoder.transform's (the same weights added; tests/test_engine.py)."""
     lo, items, labels = part
-    provisional: dict[str, int] = {}
-    occurrences: list[int] = []
-    indptr, indices, data = array("q", [0]), array("q"), array("d")
     tokens = template.tokenizer.tokens
-    text_fields = template.schema.text_fields
-    for item in items:
-        acc: dict[int, float] = {}
-        for f in text_fields:
-            w = f.weight
-            for tok in tokens(item.get(f.name)):
-                j = provisional.get(tok)
-                if j is None:
-                    j = provisional[tok] = len(occurrences)
-                    occurrences.append(0)
-                occurrences[j] += 1
-                acc[j] = acc.get(j, 0.0) + w
-        indices.extend(acc.keys())
-        data.extend(acc.values())
-        indptr.append(len(indices))
-    terms = list(provisional)
-    X = sp.csr_matrix((np.frombuffer(data, dtype=np.float64), np.frombuffer(indices, dtype=np.int64),
-                       np.frombuffer(indptr, dtype=np.int64)), shape=(len(items), len(terms)))
+    text_fields = [(f.name, f.weight) for f in template.schema.text_fields]
+    flat: list[str] = []
+    rows, lengths, weights = array("q"), array("q"), array("d")
+    for i, item in enumerate(items):
+        for name, w in text_fields:
+            toks = tokens(item.get(name))
+            if toks:
+                flat.extend(toks)
+                rows.append(i)
+                lengths.append(len(toks))
+                weights.append(w)
+    codes, uniques = pd.factorize(np.array(flat, dtype=object)) if flat else (np.empty(0, np.int64), [])
+    terms = [str(t) for t in uniques]
+    n_len = np.frombuffer(lengths, dtype=np.int64) if len(lengths) else np.empty(0, np.int64)
+    row_of = np.repeat(np.frombuffer(rows, dtype=np.int64) if len(rows) else np.empty(0, np.int64), n_len)
+    w_of = np.repeat(np.frombuffer(weights, dtype=np.float64) if len(weights) else np.empty(0), n_len)
+    X = sp.csr_matrix((w_of, (row_of, codes)), shape=(len(items), len(terms)))
+    occurrences = np.bincount(codes, minlength=len(terms))
     occ = np.asarray(occurrences, dtype=np.int64)
-    names = [f.name for f in template.schema.value_fields]
-    values = [{n: item.get(n) for n in names} for item in items]
-    # the value statistics come from the encoder's own rules; the token totals from the walk above
-    vocab = VocabularyCounts.of(template, values)
-    vocab.occurrences = Counter(dict(zip(terms, occ.tolist(), strict=True)))
+    # each value field read once, by the encoder's rules: a category's key, a number (NaN when missing)
+    values: dict[str, Any] = {}
+    vocab = VocabularyCounts(Counter(dict(zip(terms, occ.tolist(), strict=True))))
+    for f in template.schema.value_fields:
+        raw = [item.get(f.name) for item in items]
+        if f.role is FieldRole.CATEGORY:
+            keys = [MISSING if _is_missing(v) else str(v).strip() for v in raw]
+            values[f.name] = keys
+            vocab.levels[f.name] = set(keys)
+        else:
+            xs = np.array([np.nan if (x := _number(v, f.name)) is None else x for v in raw], dtype=np.float64)
+            values[f.name] = xs
+            vocab.numbers[f.name] = [xs[~np.isnan(xs)]]
     return TokenisedPart(lo, terms, X, occ, values, list(labels), vocab)
 
 
@@ -109,11 +119,17 @@ def _renumber(part: TokenisedPart, encoder: Encoder) -> EncodedPart:
     Y = sp.csr_matrix((X.data[keep], cols[keep], kept_before[X.indptr]), shape=(X.shape[0], encoder.n_terms))
     Y.sort_indices()
     fields = encoder.schema.value_fields
-    codes = np.empty((len(part.values), len(fields)), dtype=np.int64)
-    for k, f in enumerate(fields):
-        code = encoder.code
-        for i, v in enumerate(part.values):
-            codes[i, k] = code(f, v.get(f.name))
+    codes = np.empty((X.shape[0], len(fields)), dtype=np.int64)
+    for k, f in enumerate(fields):  # Encoder.code, a column at a time
+        if f.role is FieldRole.CATEGORY:
+            index, unseen = encoder.level_index_[f.name], len(encoder.levels_[f.name])
+            codes[:, k] = np.fromiter((index.get(key, unseen) for key in part.values[f.name]), dtype=np.int64,
+                                      count=X.shape[0])
+        else:
+            xs, edges = part.values[f.name], encoder.edges_[f.name]
+            col = np.searchsorted(edges, xs, side="right")
+            col[np.isnan(xs)] = len(edges) + 1
+            codes[:, k] = col
     return EncodedPart(part.lo, EncodedBatch(Y, codes), part.labels)
 
 

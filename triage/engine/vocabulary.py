@@ -10,14 +10,12 @@ at once; tests/test_engine.py checks that manifest for manifest.
 from __future__ import annotations
 
 from collections import Counter
-from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
-from typing import Any
 
 import numpy as np
 
-# the encoder's own rules for a missing value, a category key and a number, and its bin edges: one definition
-from triage.core.encode import MISSING, Encoder, _is_missing, _number, _quantile_edges
+# the encoder's own bin edges: one definition of the quantile rule
+from triage.core.encode import Encoder, _quantile_edges
 from triage.core.schema import FieldRole
 
 
@@ -28,24 +26,6 @@ class VocabularyCounts:
     occurrences: Counter[str] = field(default_factory=Counter)
     levels: dict[str, set[str]] = field(default_factory=dict)
     numbers: dict[str, list[np.ndarray]] = field(default_factory=dict)
-
-    @classmethod
-    def of(cls, template: Encoder, items: Sequence[Mapping[str, Any]]) -> VocabularyCounts:
-        """Count one partition with the tokenizer and schema of an unfitted encoder."""
-        schema, tokens = template.schema, template.tokenizer.tokens
-        occ: Counter[str] = Counter()
-        for item in items:
-            for f in schema.text_fields:
-                occ.update(tokens(item.get(f.name)))
-        out = cls(occ)
-        for f in schema.value_fields:
-            values = [item.get(f.name) for item in items]
-            if f.role is FieldRole.CATEGORY:
-                out.levels[f.name] = {MISSING if _is_missing(v) else str(v).strip() for v in values}
-            else:
-                xs = [x for v in values if (x := _number(v, f.name)) is not None]
-                out.numbers[f.name] = [np.asarray(xs, dtype=np.float64)]
-        return out
 
     def merge(self, other: VocabularyCounts) -> VocabularyCounts:
         self.occurrences.update(other.occurrences)
