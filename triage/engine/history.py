@@ -61,32 +61,56 @@ class EncodedPart:
     labels: list[str]
 
 
+# items tokenised together: their tokens are alive at once (about 100 bytes a token), so a chunk bounds that
+TOKEN_CHUNK_ITEMS = 2048
+
+
 def _tokenise(part: tuple[int, list[dict[str, Any]], list[str]], template: Encoder) -> TokenisedPart:
     """The one pass over a partition's text: the encoder's tokens of every text field, weighted by the field.
 
-    The tokens of the whole partition go into one list and are numbered by pandas' hash factorisation (in C),
-    so the Python work per token is the tokenizer's alone; repeated tokens of one item are summed by the sparse
-    constructor. The counts equal Encoder.transform's (the same weights added; tests/test_engine.py)."""
+    A chunk's tokens go into one list and are numbered by pandas' hash factorisation (in C); only the chunk's
+    distinct tokens then meet the partition's term dictionary, so the Python work per token is the
+    tokenizer's. Repeated tokens of one item are summed by the sparse constructor. The counts equal
+    Encoder.transform's (the same weights added; tests/test_engine.py)."""
     lo, items, labels = part
-    tokens = template.tokenizer.tokens
-    text_fields = [(f.name, f.weight) for f in template.schema.text_fields]
-    flat: list[str] = []
-    rows, lengths, weights = array("q"), array("q"), array("d")
-    for i, item in enumerate(items):
-        for name, w in text_fields:
-            toks = tokens(item.get(name))
-            if toks:
-                flat.extend(toks)
-                rows.append(i)
-                lengths.append(len(toks))
-                weights.append(w)
-    codes, uniques = pd.factorize(np.array(flat, dtype=object)) if flat else (np.empty(0, np.int64), [])
-    terms = [str(t) for t in uniques]
-    n_len = np.frombuffer(lengths, dtype=np.int64) if len(lengths) else np.empty(0, np.int64)
-    row_of = np.repeat(np.frombuffer(rows, dtype=np.int64) if len(rows) else np.empty(0, np.int64), n_len)
-    w_of = np.repeat(np.frombuffer(weights, dtype=np.float64) if len(weights) else np.empty(0), n_len)
-    X = sp.csr_matrix((w_of, (row_of, codes)), shape=(len(items), len(terms)))
-    occurrences = np.bincount(codes, minlength=len(terms))
+    # what the encoder counts for a text field: its tokens, or (a tokenizer with `pieces`) the field's pieces
+    tokenizer = template.tokenizer
+    pieces = getattr(tokenizer, "pieces", None)
+    text_fields = [(f.name, f.weight, getattr(f, "pieces", None)) for f in template.schema.text_fields]
+    provisional: dict[str, int] = {}
+    chunks: list[sp.csr_matrix] = []
+    occurrences = np.zeros(0, dtype=np.int64)
+    for start in range(0, len(items), TOKEN_CHUNK_ITEMS):
+        chunk = items[start: start + TOKEN_CHUNK_ITEMS]
+        flat: list[str] = []
+        rows, lengths, weights = array("q"), array("q"), array("d")
+        for i, item in enumerate(chunk):
+            for name, w, kind in text_fields:
+                text = item.get(name)
+                toks = pieces(text, kind) if pieces is not None and kind is not None else tokenizer.tokens(text)
+                if toks:
+                    flat.extend(toks)
+                    rows.append(i)
+                    lengths.append(len(toks))
+                    weights.append(w)
+        if flat:
+            codes, uniques = pd.factorize(np.array(flat, dtype=object))
+            ids = np.fromiter((provisional.setdefault(t, len(provisional)) for t in uniques), dtype=np.int64,
+                              count=len(uniques))[codes]
+            n_len = np.frombuffer(lengths, dtype=np.int64)
+            row_of = np.repeat(np.frombuffer(rows, dtype=np.int64), n_len)
+            w_of = np.repeat(np.frombuffer(weights, dtype=np.float64), n_len)
+            del flat, codes
+            occurrences = np.pad(occurrences, (0, len(provisional) - occurrences.size))
+            occurrences += np.bincount(ids, minlength=len(provisional))
+        else:
+            ids, row_of, w_of = (np.empty(0, dtype=np.int64),) * 2 + (np.empty(0),)
+        chunks.append(sp.csr_matrix((w_of, (row_of, ids)), shape=(len(chunk), len(provisional))))
+    terms = list(provisional)
+    for c in chunks:  # earlier chunks saw fewer terms: widen them (no data moves)
+        c.resize((c.shape[0], len(terms)))
+    X = sp.vstack(chunks, format="csr") if chunks else sp.csr_matrix((0, 0))
+    occurrences = np.pad(occurrences, (0, len(terms) - occurrences.size))
     occ = np.asarray(occurrences, dtype=np.int64)
     # each value field read once, by the encoder's rules: a category's key, a number (NaN when missing)
     values: dict[str, Any] = {}
