@@ -7,6 +7,7 @@ from pathlib import Path
 import pytest
 
 from tests.helpers import build_demo_workspace
+from tests.service_support import base_dir, items, trained_ids  # noqa: F401  (the service's live-server fixtures)
 
 
 @pytest.fixture(scope="session")

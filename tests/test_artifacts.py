@@ -15,7 +15,15 @@ import pytest
 
 from triage.core.model import ModelSpec, NaiveBayes
 from triage.core.schema import FieldRole, FieldSpec, Schema
-from triage.store.artifacts import FORMAT_VERSION, ArtifactError, load_model, read_manifest, save_model
+from triage.store.artifacts import (
+    FORMAT_VERSION,
+    SUMS,
+    ArtifactError,
+    clean_models_dir,
+    load_model,
+    read_manifest,
+    save_model,
+)
 
 SCHEMA = Schema(
     fields=(FieldSpec("subject", FieldRole.TEXT, weight=2.0), FieldSpec("body", FieldRole.TEXT),
@@ -72,14 +80,24 @@ def test_files_are_plain_npz_and_json(tmp_path: Path) -> None:
     manifest = json.loads((path / "manifest.json").read_text(encoding="utf-8"))
     assert manifest["format_version"] == FORMAT_VERSION
     assert manifest["queues"] == m.queues
-    assert manifest["arrays_sha256"] == hashlib.sha256((path / "arrays.npz").read_bytes()).hexdigest()
+    # every other file is covered by the checksum list (SHA-256 as hashlib computes it, FIPS 180-4)
+    sums = json.loads((path / SUMS).read_text(encoding="utf-8"))["sha256"]
+    for name in ("arrays.npz", "manifest.json"):
+        assert sums[name] == hashlib.sha256((path / name).read_bytes()).hexdigest()
     with np.load(path / "arrays.npz", allow_pickle=False) as npz:
         np.testing.assert_array_equal(npz["class_count"], m.counts.class_count_)
         np.testing.assert_array_equal(npz["token_count"], m.counts.token_count_)
         np.testing.assert_array_equal(npz["field_count_0"], m.counts.field_count_[0])
 
 
-def _edit_manifest(path: Path, **changes) -> None:
+def _resum(path: Path) -> None:
+    """Write a checksum list matching the files as they are now: an artifact whose damage the checksums cannot
+    see (written wrongly rather than damaged later), so the content checks must find it."""
+    sums = {n: hashlib.sha256((path / n).read_bytes()).hexdigest() for n in ("arrays.npz", "manifest.json")}
+    (path / SUMS).write_text(json.dumps({"format": "triage-model-checksums", "sha256": sums}), encoding="utf-8")
+
+
+def _edit_manifest(path: Path, resum: bool = True, **changes) -> None:
     mpath = path / "manifest.json"
     manifest = json.loads(mpath.read_text(encoding="utf-8"))
     for k, v in changes.items():
@@ -88,6 +106,8 @@ def _edit_manifest(path: Path, **changes) -> None:
         else:
             manifest[k] = v
     mpath.write_text(json.dumps(manifest), encoding="utf-8")
+    if resum:
+        _resum(path)
 
 
 def test_model_from_the_future_is_refused(tmp_path: Path) -> None:
@@ -111,7 +131,7 @@ def test_truncated_arrays_are_refused(tmp_path: Path) -> None:
     with pytest.raises(ArtifactError, match="checksum"):
         load_model(path)
     # even with a checksum that matches the truncated file, the broken zip is reported, not raised raw
-    _edit_manifest(path, arrays_sha256=hashlib.sha256(apath.read_bytes()).hexdigest())
+    _resum(path)
     with pytest.raises(ArtifactError, match="unreadable"):
         load_model(path)
     apath.unlink()
@@ -127,7 +147,7 @@ def test_arrays_needing_pickle_are_refused(tmp_path: Path) -> None:
     arrays["class_count"] = np.array([object()] * m.counts.n_queues, dtype=object)
     with apath.open("wb") as fh:
         np.savez(fh, **arrays)
-    _edit_manifest(path, arrays_sha256=hashlib.sha256(apath.read_bytes()).hexdigest())
+    _resum(path)
     with pytest.raises(ArtifactError):
         load_model(path)
 
@@ -140,6 +160,9 @@ def test_arrays_needing_pickle_are_refused(tmp_path: Path) -> None:
 def test_corrupted_manifest_is_refused(tmp_path: Path, content: bytes) -> None:
     path = save_model(_model(), tmp_path / "v1")
     (path / "manifest.json").write_bytes(content)
+    with pytest.raises(ArtifactError, match="checksum"):
+        load_model(path)
+    _resum(path)
     with pytest.raises(ArtifactError):
         load_model(path)
 
@@ -157,6 +180,7 @@ def test_counts_and_vocabulary_must_agree(tmp_path: Path) -> None:
     manifest = json.loads((path / "manifest.json").read_text(encoding="utf-8"))
     manifest["encoder"]["terms"] = manifest["encoder"]["terms"][:-1]
     (path / "manifest.json").write_text(json.dumps(manifest), encoding="utf-8")
+    _resum(path)
     with pytest.raises(ArtifactError, match="disagree"):
         load_model(path)
 
@@ -186,4 +210,83 @@ def test_a_failed_save_leaves_nothing(tmp_path: Path) -> None:
     assert list((tmp_path / "models").iterdir()) == []  # the temporary folder is gone too
     # a later save under the same name works
     save_model(_model(), tmp_path / "models" / "v2")
-    assert sorted(p.name for p in (tmp_path / "models" / "v2").iterdir()) == ["arrays.npz", "manifest.json"]
+    assert sorted(p.name for p in (tmp_path / "models" / "v2").iterdir()) == ["arrays.npz", SUMS, "manifest.json"]
+
+
+# ----------------------------------------------------------------------------------------------------------
+# every file checksummed; content checked on load; files private
+
+
+def test_an_edited_manifest_is_refused_by_its_checksum(tmp_path: Path) -> None:
+    """Swapping two queue names keeps the manifest valid JSON and every shape right: only a checksum over the
+    manifest itself can tell."""
+    path = save_model(_model(), tmp_path / "v1")
+    queues = json.loads((path / "manifest.json").read_text(encoding="utf-8"))["queues"]
+    _edit_manifest(path, resum=False, queues=[queues[1], queues[0], *queues[2:]])
+    with pytest.raises(ArtifactError, match="checksum"):
+        load_model(path)
+    (path / SUMS).unlink()
+    with pytest.raises(ArtifactError, match=SUMS):
+        load_model(path)
+
+
+def _edit_arrays(path: Path, **changes: np.ndarray) -> None:
+    apath = path / "arrays.npz"
+    with np.load(apath, allow_pickle=False) as npz:
+        arrays = {k: npz[k] for k in npz.files}
+    arrays.update(changes)
+    with apath.open("wb") as fh:
+        np.savez(fh, **arrays)
+    _resum(path)
+
+
+def test_content_that_cannot_be_right_is_refused(tmp_path: Path) -> None:
+    m = _model()
+    cases = {
+        "repeat": lambda p: _edit_manifest(p, queues=[m.queues[0], *m.queues[:-1]]),
+        "columns": lambda p: _edit_arrays(p, field_count_0=m.counts.field_count_[0][:, :-1]),
+        "increasing": lambda p: _edit_manifest(p, encoder={**m.encoder.to_manifest(),
+                                                           "edges": {"tenure": [400.0, 30.0]}}),
+        "more items containing": lambda p: _edit_arrays(p, doc_freq=m.counts.doc_freq_ + 1e6),
+        "more values": lambda p: _edit_arrays(p, field_count_0=m.counts.field_count_[0] * 1e6),
+        "negative": lambda p: _edit_arrays(p, class_count=-m.counts.class_count_),
+        "finite": lambda p: _edit_arrays(p, token_count=np.full_like(m.counts.token_count_, np.inf)),
+    }
+    for i, (why, damage) in enumerate(cases.items()):
+        path = save_model(m, tmp_path / f"v{i}")
+        load_model(path)  # fine before
+        damage(path)
+        with pytest.raises(ArtifactError, match=why):
+            load_model(path)
+
+
+def test_files_are_private_and_never_written_through_a_link(tmp_path: Path) -> None:
+    path = save_model(_model(), tmp_path / "models" / "v1")
+    assert (path.stat().st_mode & 0o777) == 0o700
+    for f in path.iterdir():
+        assert (f.stat().st_mode & 0o777) == 0o600, f
+    target = tmp_path / "elsewhere"
+    target.mkdir()
+    (tmp_path / "models" / "v2").symlink_to(target)
+    with pytest.raises(ArtifactError, match="never overwritten"):
+        save_model(_model(), tmp_path / "models" / "v2")
+    assert list(target.iterdir()) == []
+
+
+def test_clean_removes_old_temporary_and_orphan_folders_only(tmp_path: Path) -> None:
+    models = tmp_path / "models"
+    kept = save_model(_model(), models / "kept")
+    orphan = save_model(_model(), models / "orphan")
+    young = save_model(_model(), models / "young")
+    tmp = models / ".half.abc.tmp"
+    tmp.mkdir()
+    (tmp / "arrays.npz").write_bytes(b"half")
+    other = models / "notes"
+    other.mkdir()  # not a model folder: never touched
+    now = orphan.stat().st_mtime + 7200
+    import os
+    os.utime(young, (now - 10, now - 10))
+    removed = clean_models_dir(models, {"kept"}, now=now)
+    assert sorted(p.name for p in removed) == [".half.abc.tmp", "orphan"]
+    assert kept.exists() and young.exists() and other.exists()
+    assert not orphan.exists() and not tmp.exists()

@@ -6,105 +6,25 @@ state serves its own copy of that folder.
 
 from __future__ import annotations
 
-import csv
 import json
 import random
 import shutil
 import threading
 import time
 from collections.abc import Iterator
-from contextlib import contextmanager
 from pathlib import Path
 from typing import Any
 
 import httpx
 import pytest
-import uvicorn
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from starlette.routing import Route
 
+from tests.service_support import CONFIG, TOKEN, running, serving
 from triage.app import Workspace
 from triage.service import OPENAPI, check_bind, create_app, is_loopback, serve
 from triage.store import Store
-
-REPO = Path(__file__).resolve().parents[1]
-TICKETS = REPO / "demo_corpus" / "voltwren_tickets.csv"
-CONFIG = REPO / "configs" / "voltwren.toml"
-TRAIN_ROWS = 1500
-TOKEN = "a-long-random-test-token-7f3c9e"
-NUMBER_FIELDS = ("tenure_days", "open_orders")
-
-
-# ----------------------------------------------------------------------------------------------------------
-# fixtures: the workspace, a live server, items
-
-
-def _ticket_rows() -> list[dict[str, str]]:
-    with TICKETS.open(encoding="utf-8", newline="") as fh:
-        return list(csv.DictReader(fh))
-
-
-@pytest.fixture(scope="session")
-def base_dir(tmp_path_factory: pytest.TempPathFactory) -> Path:
-    root = tmp_path_factory.mktemp("service-ws")
-    shutil.copy(CONFIG, root / "triage.toml")
-    rows = _ticket_rows()[:TRAIN_ROWS]
-    data = tmp_path_factory.mktemp("service-data") / "tickets.csv"
-    with data.open("w", encoding="utf-8", newline="") as fh:
-        w = csv.DictWriter(fh, fieldnames=list(rows[0]))
-        w.writeheader()
-        w.writerows(rows)
-    with Workspace.open(root) as ws:
-        ws.import_file(data)
-        ws.train()
-    return root
-
-
-@pytest.fixture(scope="session")
-def items() -> list[dict[str, Any]]:
-    """Tickets the model never saw, in the service's item shape."""
-    out = []
-    for r in _ticket_rows()[TRAIN_ROWS:TRAIN_ROWS + 1500]:
-        fields = {k: r[k] for k in ("subject", "body", "channel", "product_line", "plan", "region")}
-        for k in NUMBER_FIELDS:
-            fields[k] = float(r[k]) if r[k] else None
-        out.append({"id": r["ticket_id"], "fields": fields, "arrived_at": r["received_at"]})
-    return out
-
-
-@pytest.fixture(scope="session")
-def trained_ids() -> list[str]:
-    return [r["ticket_id"] for r in _ticket_rows()[:TRAIN_ROWS]]
-
-
-@contextmanager
-def running(app: Any) -> Iterator[str]:
-    """Run `app` with uvicorn in a thread on a free loopback port; yield its base URL."""
-    server = uvicorn.Server(uvicorn.Config(app, host="127.0.0.1", port=0, log_level="warning", lifespan="on"))
-    thread = threading.Thread(target=server.run, daemon=True)
-    thread.start()
-    deadline = time.monotonic() + 30
-    while not server.started:
-        if not thread.is_alive() or time.monotonic() > deadline:
-            raise RuntimeError("the test server did not start")
-        time.sleep(0.01)
-    port = server.servers[0].sockets[0].getsockname()[1]
-    try:
-        yield f"http://127.0.0.1:{port}"
-    finally:
-        server.should_exit = True
-        thread.join(timeout=30)
-
-
-@contextmanager
-def serving(base: Path, dest: Path, **options: Any) -> Iterator[tuple[str, Any, Path]]:
-    """A copy of the base workspace at `dest`, served with `options`: (url, app, folder)."""
-    root = dest / "ws"
-    shutil.copytree(base, root)
-    app = create_app(root, **options)
-    with running(app) as url:
-        yield url, app, root
 
 
 @pytest.fixture(scope="module")
@@ -185,7 +105,7 @@ def test_health_and_model(client: httpx.Client, live: tuple[str, Any, Path]) -> 
     ws = live[1].state.workspace
     h = client.get("/v1/health")
     assert h.status_code == 200
-    assert h.json() == {"ok": True, "model_version": ws.active_version.version}
+    assert h.json() == {"ok": True, "status": "ok", "model_version": ws.active_version.version, "problems": []}
     m = client.get("/v1/model")
     assert m.status_code == 200
     body = m.json()
@@ -306,14 +226,16 @@ def test_correction_is_learned_and_used_by_the_next_route(base_dir: Path, tmp_pa
             assert journal.get_item(item["id"]).label == target
         finally:
             journal.close()
-        # a valid new queue name adds a queue
-        r = c.post("/v1/corrections", json={"item_id": items[101]["id"], "queue": "warranty_claims"})
+        # a valid new queue name adds a queue, when asked for explicitly
+        new = {"item_id": items[101]["id"], "queue": "warranty_claims", "new_queue": True}
+        r = c.post("/v1/corrections", json=new)
         assert r.status_code == 404  # not routed yet
         assert c.post("/v1/route", json=items[101]).status_code == 200
-        r = c.post("/v1/corrections", json={"item_id": items[101]["id"], "queue": "warranty_claims"})
-        assert r.status_code == 422 and r.json()["field"] == "queue" and "new_queue" in r.json()["error"]
-        r = c.post("/v1/corrections", json={"item_id": items[101]["id"], "queue": "warranty_claims",
-                                            "new_queue": True})
+        r = c.post("/v1/corrections", json={**new, "new_queue": False})
+        assert (r.status_code, r.json()["field"]) == (422, "queue")
+        assert "new_queue" in r.json()["error"]
+        assert "warranty_claims" not in c.get("/v1/model").json()["queues"]
+        r = c.post("/v1/corrections", json=new)
         assert r.status_code == 200, r.text
         assert "warranty_claims" in c.get("/v1/model").json()["queues"]
 
@@ -384,7 +306,7 @@ def test_bad_corrections(client: httpx.Client, live: tuple[str, Any, Path], body
                          field: str | None) -> None:
     store = live[1].state.workspace.store
     before = len(store.corrections())
-    r = client.post("/v1/corrections", content=body)
+    r = client.post("/v1/corrections", content=body, headers={"Content-Type": "application/json"})
     assert r.status_code == status, r.text
     assert r.json()["field"] == field
     assert len(store.corrections()) == before
@@ -437,7 +359,7 @@ def test_no_model_yet_is_409(tmp_path: Path) -> None:
     root.mkdir()
     shutil.copy(CONFIG, root / "triage.toml")
     with running(create_app(root)) as url, httpx.Client(base_url=url, timeout=30) as c:
-        assert c.get("/v1/health").json() == {"ok": True, "model_version": None}
+        assert c.get("/v1/health").json() == {"ok": True, "status": "ok", "model_version": None, "problems": []}
         for method, path, body in [("GET", "/v1/model", None),
                                    ("POST", "/v1/route", {"id": "a", "fields": {}}),
                                    ("POST", "/v1/corrections", {"item_id": "a", "queue": "billing"})]:

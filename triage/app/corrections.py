@@ -6,7 +6,7 @@ from __future__ import annotations
 import difflib
 from typing import TYPE_CHECKING
 
-from triage.app.active import commit_correction, replay_pending, require_model
+from triage.app.active import commit_correction, load_active, replay_pending, require_model
 from triage.app.decisions import CorrectionReport
 from triage.app.errors import BadInput, UnknownItem, UnknownQueue
 from triage.app.routing import decide_records
@@ -43,9 +43,12 @@ def check_queue(ws: Workspace, queue: str, *, new_queue: bool) -> None:
 
 
 def correct(ws: Workspace, item_id: str, queue: str, by: str = "operator", *,
-            new_queue: bool = False) -> CorrectionReport:
+            new_queue: bool = False, request_key: str | None = None) -> CorrectionReport:
     """Journal a correction (durable first), learn it exactly, and activate the corrected model.
-    A queue not yet known needs `new_queue=True` (see `check_queue`)."""
+
+    A queue not yet known needs `new_queue=True` (see `check_queue`). `request_key`: a repeat with the same key
+    returns the first outcome and changes nothing. When the correction cannot be committed it is withdrawn
+    from the journal before the error is raised, so an error means "not done"."""
     queue = queue.strip()
     if not queue:
         raise BadInput("the queue to correct to is empty")
@@ -56,10 +59,21 @@ def correct(ws: Workspace, item_id: str, queue: str, by: str = "operator", *,
         rec = ws.store.get_item(item_id)
         if rec is None:
             raise UnknownItem(f"{ws.store.path}: no item with id {item_id!r}")
+        if request_key is not None:
+            seen = ws.store.correction_by_key(request_key)
+            if seen is not None and seen.applied_version is not None:
+                return CorrectionReport(seen, ws.store.get_model_version(seen.applied_version), seen.from_queue,
+                                        seen.to_queue, decide_records(ws, [rec])[0])
         check_queue(ws, queue, new_queue=new_queue)
-        c = ws.store.journal_correction(item_id, queue, by, active.version.version)
+        c = ws.store.journal_correction(item_id, queue, by, active.version.version, request_key=request_key)
         before = rec.label
-        mv = commit_correction(ws, c)
+        try:
+            mv = commit_correction(ws, c)
+        except BaseException:
+            if ws.store.withdraw_correction(c.id):
+                raise
+            load_active(ws)  # another process applied it meanwhile: it is done
+            mv = require_model(ws).version
         decision = decide_records(ws, [rec])[0]
     return CorrectionReport(ws.store.get_correction(c.id), mv, before, queue, decision)
 

@@ -8,8 +8,11 @@ SIGKILL leaves either all of it or none of it. Timestamps are UTC ISO 8601 text.
 
 from __future__ import annotations
 
+import hashlib
 import json
+import os
 import sqlite3
+import stat
 import threading
 from collections.abc import Iterable, Iterator, Sequence
 from contextlib import contextmanager
@@ -22,12 +25,40 @@ from triage.records import ItemRecord
 from triage.store.migrations import LATEST_VERSION, MIGRATIONS, statements
 
 BUSY_TIMEOUT_S = 5.0
+FILE_MODE = 0o600  # tickets hold personal data: the database is readable by its owner only
+SHARED_KEYS = ("calibration", "policy", "split", "spec")
+SHARED_REF = "$shared"
+SHARE_MIN_CHARS = 256
 MODEL_KINDS = ("train", "correction", "adopt")
 _CHUNK = 500  # ids per IN (...) query, well below SQLite's bound-variable limit
 
 
 class StoreError(Exception):
     """Something is wrong with the store; the message names the file and what is wrong."""
+
+
+class StoreFullError(StoreError):
+    """The disk (or the file system quota) is full: nothing of the failed write was kept."""
+
+
+class StoreBusyError(StoreError):
+    """Another process held the write lock past the busy timeout: nothing was done, trying again may work."""
+
+
+# SQLite primary result codes (https://www.sqlite.org/rescode.html)
+_SQLITE_BUSY, _SQLITE_LOCKED, _SQLITE_FULL = 5, 6, 13
+
+
+def store_error(path: Path, exc: sqlite3.Error, what: str = "") -> StoreError:
+    """The StoreError for a sqlite3 error, typed by its result code so callers can tell full from busy."""
+    code = getattr(exc, "sqlite_errorcode", None)
+    primary = code & 0xFF if isinstance(code, int) else None
+    text = f"{path}: {what}{exc}"
+    if primary == _SQLITE_FULL or "disk is full" in str(exc):
+        return StoreFullError(text)
+    if primary in (_SQLITE_BUSY, _SQLITE_LOCKED) or "database is locked" in str(exc):
+        return StoreBusyError(text)
+    return StoreError(text)
 
 
 class UnknownItemError(StoreError):
@@ -40,6 +71,14 @@ class UnknownVersionError(StoreError):
 
 class UnknownCorrectionError(StoreError):
     """No correction with that id is journaled."""
+
+
+class DuplicateRequestError(StoreError):
+    """A correction with this idempotency key is journaled already (`correction_id`)."""
+
+    def __init__(self, message: str, correction_id: int) -> None:
+        super().__init__(message)
+        self.correction_id = correction_id
 
 
 @dataclass(frozen=True)
@@ -78,6 +117,7 @@ class Correction:
     status: str  # 'pending' | 'applied' | 'undone'
     applied_version: int | None
     undo_of: int | None
+    request_key: str | None = None  # the client's idempotency key, when it sent one
 
 
 @dataclass(frozen=True)
@@ -158,6 +198,7 @@ class Store:
         self._depth = 0
         self._closed = False
         self.read_only = False
+        self._parts: dict[str, str] = {}  # shared config parts by digest (immutable, so cached as text)
 
     # ------------------------------------------------------------------ opening and transactions
 
@@ -170,12 +211,13 @@ class Store:
         path = Path(path)
         if read_only:
             return cls._open_read_only(path)
+        _own_file(path)
         try:
             conn = sqlite3.connect(
                 path, timeout=BUSY_TIMEOUT_S, isolation_level=None, check_same_thread=False
             )
         except sqlite3.Error as exc:
-            raise StoreError(f"{path}: cannot open the store: {exc}") from exc
+            raise store_error(path, exc, "cannot open the store: ") from exc
         try:
             _configure(conn, path)
             migrate(conn, path)
@@ -273,7 +315,7 @@ class Store:
             try:
                 self._conn.execute("BEGIN IMMEDIATE")
             except sqlite3.Error as exc:
-                raise StoreError(f"{self.path}: cannot start a write transaction: {exc}") from exc
+                raise store_error(self.path, exc, "cannot start a write transaction: ") from exc
             self._depth = 1
             try:
                 yield self
@@ -281,7 +323,7 @@ class Store:
             except BaseException as exc:
                 self._rollback()
                 if isinstance(exc, sqlite3.Error):
-                    raise StoreError(f"{self.path}: {exc}") from exc
+                    raise store_error(self.path, exc) from exc
                 raise
             finally:
                 self._depth = 0
@@ -305,7 +347,7 @@ class Store:
             try:
                 return self._conn.execute(sql, params).fetchall()
             except sqlite3.Error as exc:
-                raise StoreError(f"{self.path}: {exc}") from exc
+                raise store_error(self.path, exc) from exc
 
     def _one(self, sql: str, params: Sequence[Any] = ()) -> tuple[Any, ...] | None:
         rows = self._all(sql, params)
@@ -436,14 +478,21 @@ class Store:
         by: str,
         base_version: int | None,
         undo_of: int | None = None,
+        request_key: str | None = None,
     ) -> Correction:
         """Write a 'pending' correction and commit it, before the model is touched, so a crash can replay it.
 
         `from_queue` is the item's current label. `to_queue` may be None only for an undo (back to no label).
         An undo must name an applied, not yet undone, non-undo correction of the same item whose label has not
-        moved since, and must restore that correction's `from_queue`.
+        moved since, and must restore that correction's `from_queue`. A `request_key` already journaled raises
+        DuplicateRequestError naming that correction (the key and the entry are written in one transaction).
         """
         with self.transaction():
+            if request_key is not None:
+                seen = self._write("SELECT id FROM corrections WHERE request_key = ?", (request_key,)).fetchone()
+                if seen is not None:
+                    raise DuplicateRequestError(f"{self.path}: request key {request_key!r} is correction {seen[0]}",
+                                                int(seen[0]))
             row = self._write("SELECT label FROM items WHERE item_id = ?", (item_id,)).fetchone()
             if row is None:
                 raise UnknownItemError(f"{self.path}: no such item: {item_id}")
@@ -483,9 +532,9 @@ class Store:
                         f"{self.path}: undoing correction {undo_of} must restore {target.from_queue!r}, not {to_queue!r}"
                     )
             cur = self._write(
-                "INSERT INTO corrections(item_id, from_queue, to_queue, actor, at, base_version, status, undo_of)"
-                " VALUES (?, ?, ?, ?, ?, ?, 'pending', ?)",
-                (item_id, current, to_queue, by, utc_now(), base_version, undo_of),
+                "INSERT INTO corrections(item_id, from_queue, to_queue, actor, at, base_version, status, undo_of,"
+                " request_key) VALUES (?, ?, ?, ?, ?, ?, 'pending', ?, ?)",
+                (item_id, current, to_queue, by, utc_now(), base_version, undo_of, request_key),
             )
             assert cur.lastrowid is not None
             return self._correction_row(cur.lastrowid)
@@ -531,6 +580,30 @@ class Store:
         """One journal entry; UnknownCorrectionError when there is none."""
         with self._lock:
             return self._correction_row(correction_id)
+
+    def correction_by_key(self, request_key: str) -> Correction | None:
+        """The journal entry written with this idempotency key, or None."""
+        found = self._corrections("WHERE request_key = ?", (request_key,))
+        return found[0] if found else None
+
+    def withdraw_correction(self, correction_id: int) -> bool:
+        """Delete a correction that is still pending (its commit failed and the caller reports "not done").
+
+        True when it was withdrawn; False when it is no longer pending (another process applied it)."""
+        with self.transaction():
+            cur = self._write("DELETE FROM corrections WHERE id = ? AND status = 'pending'", (correction_id,))
+            return cur.rowcount == 1
+
+    def save_reply(self, request_key: str, correction_id: int, reply_json: str) -> None:
+        """Keep the answer given to an idempotent request, so a repeat gets the same answer."""
+        with self.transaction():
+            self._write("INSERT OR IGNORE INTO replies(request_key, correction_id, reply_json, at) VALUES (?, ?, ?, ?)",
+                        (request_key, correction_id, reply_json, utc_now()))
+
+    def reply_for(self, request_key: str) -> str | None:
+        """The answer kept for this idempotency key, or None."""
+        row = self._one("SELECT reply_json FROM replies WHERE request_key = ?", (request_key,))
+        return None if row is None else str(row[0])
 
     def pending_corrections(self) -> list[Correction]:
         """Journaled but not applied corrections, oldest first: what to replay after a crash."""
@@ -678,7 +751,7 @@ class Store:
                     parent,
                     utc_now(),
                     kind,
-                    dumps(config),
+                    dumps(self._share(config)),
                     fingerprint,
                     None if scorecard is None else dumps(scorecard),
                     artifact,
@@ -700,7 +773,7 @@ class Store:
     def active_model(self) -> ModelVersion | None:
         """The active model version, or None before the first one."""
         rows = self._all(f"SELECT {_VERSION_COLS} FROM model_versions WHERE active = 1")
-        return _version(rows[0]) if rows else None
+        return self._version(rows[0]) if rows else None
 
     def get_model_version(self, version: int) -> ModelVersion:
         """One model version; UnknownVersionError when there is none."""
@@ -710,7 +783,7 @@ class Store:
     def model_versions(self) -> list[ModelVersion]:
         """Every model version, oldest first."""
         return [
-            _version(r) for r in self._all(f"SELECT {_VERSION_COLS} FROM model_versions ORDER BY version")
+            self._version(r) for r in self._all(f"SELECT {_VERSION_COLS} FROM model_versions ORDER BY version")
         ]
 
     def set_scorecard(self, version: int, scorecard: dict[str, Any]) -> None:
@@ -721,14 +794,77 @@ class Store:
                 "UPDATE model_versions SET scorecard_json = ? WHERE version = ?", (dumps(scorecard), version)
             )
 
+    def _share(self, config: dict[str, Any]) -> dict[str, Any]:
+        """Store large parts of a version's config once, by digest, and refer to them (inside a transaction).
+
+        A correction version carries its parent's calibration and routing policy unchanged; copying them into
+        every version made the store grow by kilobytes per correction."""
+        out = dict(config)
+        for key in SHARED_KEYS:
+            value = out.get(key)
+            if value is None:
+                continue
+            text = dumps(value)
+            if len(text) < SHARE_MIN_CHARS:
+                continue
+            digest = hashlib.sha256(text.encode("utf-8")).hexdigest()
+            self._write("INSERT OR IGNORE INTO shared_parts(digest, json) VALUES (?, ?)", (digest, text))
+            out[key] = {SHARED_REF: digest}
+        return out
+
+    def _resolve(self, config: dict[str, Any]) -> dict[str, Any]:
+        for key, value in list(config.items()):
+            if isinstance(value, dict) and set(value) == {SHARED_REF}:
+                digest = value[SHARED_REF]
+                text = self._parts.get(digest)
+                if text is None:
+                    row = self._one("SELECT json FROM shared_parts WHERE digest = ?", (digest,))
+                    if row is None:
+                        raise StoreError(f"{self.path}: the shared part {digest[:12]} of a model version is missing")
+                    text = self._parts[digest] = str(row[0])
+                config[key] = json.loads(text)
+        return config
+
+    def _version(self, row: tuple[Any, ...]) -> ModelVersion:
+        mv = _version(row)
+        self._resolve(mv.config)
+        return mv
+
     def _version_row(self, version: int) -> ModelVersion:
         rows = self._all(f"SELECT {_VERSION_COLS} FROM model_versions WHERE version = ?", (version,))
         if not rows:
             raise UnknownVersionError(f"{self.path}: no such model version: {version}")
-        return _version(rows[0])
+        return self._version(rows[0])
 
 
 # ---------------------------------------------------------------------- opening helpers
+
+
+def _own_file(path: Path) -> None:
+    """Create the database file exclusively with mode 0600, never through a symbolic link; tighten an existing
+    file (and its WAL and shared-memory files, which SQLite creates with the database's mode) to 0600."""
+    for p in (path, Path(f"{path}-wal"), Path(f"{path}-shm")):
+        try:
+            st = os.lstat(p)
+        except FileNotFoundError:
+            continue
+        except OSError as exc:
+            raise StoreError(f"{p}: cannot read the file: {exc.strerror}") from exc
+        if stat.S_ISLNK(st.st_mode):
+            raise StoreError(f"{p}: is a symbolic link; the store must be a plain file in the workspace")
+        if stat.S_IMODE(st.st_mode) & 0o077 and st.st_uid == os.getuid():
+            try:
+                os.chmod(p, FILE_MODE)
+            except OSError:
+                pass  # a read-only file system: SQLite says what is wrong when it opens it
+    if not path.exists():
+        try:
+            fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL | os.O_NOFOLLOW, FILE_MODE)
+        except FileExistsError:
+            return  # another process created it first
+        except OSError as exc:
+            raise StoreError(f"{path}: cannot create the store: {exc.strerror}") from exc
+        os.close(fd)
 
 
 def _configure(conn: sqlite3.Connection, path: Path) -> None:
@@ -785,7 +921,7 @@ def _refuse_newer(path: Path, version: int, latest: int) -> None:
 # ---------------------------------------------------------------------- row -> record
 
 _CORRECTION_COLS = (
-    "id, item_id, from_queue, to_queue, actor, at, base_version, status, applied_version, undo_of"
+    "id, item_id, from_queue, to_queue, actor, at, base_version, status, applied_version, undo_of, request_key"
 )
 _DECISION_COLS = ("item_id, model_version, queue, suggested, confidence, held, runner_up, evidence_json, decided_at,"
                   " batch_id, held_by, reason, runner_up_confidence")
@@ -845,11 +981,14 @@ __all__ = [
     "Batch",
     "Correction",
     "Decision",
+    "DuplicateRequestError",
     "ImportSummary",
     "LabelConflict",
     "ModelVersion",
     "Store",
+    "StoreBusyError",
     "StoreError",
+    "StoreFullError",
     "UnknownCorrectionError",
     "UnknownItemError",
     "UnknownVersionError",

@@ -97,7 +97,26 @@ ALTER TABLE decisions ADD COLUMN reason TEXT NOT NULL DEFAULT '';
 ALTER TABLE decisions ADD COLUMN runner_up_confidence REAL;
 """
 
-MIGRATIONS: list[str] = [_V1, _V2]
+# 3: idempotency keys on corrections (a repeat returns the first outcome), and parts of model-version configs
+# that many versions share (calibration, routing policy) stored once, by content digest
+_V3 = """
+ALTER TABLE corrections ADD COLUMN request_key TEXT;
+CREATE UNIQUE INDEX corrections_by_request_key ON corrections(request_key) WHERE request_key IS NOT NULL;
+
+CREATE TABLE replies (
+    request_key   TEXT PRIMARY KEY,
+    correction_id INTEGER NOT NULL REFERENCES corrections(id),
+    reply_json    TEXT NOT NULL,
+    at            TEXT NOT NULL
+);
+
+CREATE TABLE shared_parts (
+    digest TEXT PRIMARY KEY,
+    json   TEXT NOT NULL
+);
+"""
+
+MIGRATIONS: list[str] = [_V1, _V2, _V3]
 LATEST_VERSION = len(MIGRATIONS)
 
 
