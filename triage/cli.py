@@ -662,7 +662,7 @@ def cmd_serve(args: argparse.Namespace) -> int:
     from triage.service import serve
 
     token = args.token or os.environ.get("TRIAGE_TOKEN") or None  # the environment keeps it out of `ps`
-    serve(args.workspace, host=args.host, port=args.port, token=token)
+    serve(args.workspace, host=args.host, port=args.port, token=token, allowed_hosts=args.allow_host)
     return 0
 
 
@@ -752,6 +752,9 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("--host", default="127.0.0.1", help="address to bind (a token is required off loopback)")
     sp.add_argument("--port", type=int, default=8477, help="port (default 8477)")
     sp.add_argument("--token", help="bearer token that clients must send (better: set TRIAGE_TOKEN)")
+    sp.add_argument("--allow-host", action="append", default=[], metavar="NAME",
+                    help="a Host name to answer besides the loopback names and --host (repeatable), e.g. the "
+                         "name a proxy forwards")
     return p
 
 

@@ -117,9 +117,9 @@ def save_model(model: NaiveBayes, path: Path, *, fingerprint: str = "", extra: d
 
 
 def _os_error(path: Path, exc: OSError) -> ArtifactError:
-    if exc.errno in (errno.ENOSPC, errno.EDQUOT):
-        return ArtifactSpaceError(f"{path}: the disk is full; the model was not saved (free some space and "
-                                  "try again; the active model is unchanged)")
+    if exc.errno in (errno.ENOSPC, errno.EDQUOT, errno.EFBIG):  # EFBIG: a file size limit (ulimit -f)
+        return ArtifactSpaceError(f"{path}: no room to write the model ({exc.strerror}); nothing was saved and "
+                                  "the active model is unchanged: free some space and try again")
     return ArtifactError(f"{path}: cannot write the model: {exc.strerror or exc}")
 
 
