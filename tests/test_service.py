@@ -349,8 +349,9 @@ def test_a_request_over_the_time_limit_gets_503(base_dir: Path, tmp_path: Path,
         t0 = time.perf_counter()
         r = c.post("/v1/route", json={"items": items[:800]})
         waited = time.perf_counter() - t0
-        assert r.status_code == 503
-        assert "longer than" in r.json()["error"]
+        # 503 when it waited for its turn past the limit, 408 when even its body took longer: not done either way
+        assert r.status_code in (408, 503)
+        assert "nothing was done" in r.json()["error"]
         assert waited < 5  # answered at the limit, not when the work finished
 
 
