@@ -92,6 +92,45 @@ class _BadValue(Exception):
 
 
 # ----------------------------------------------------------------------------------------------------------
+# values no store can hold: one row with them is rejected, the rest of the file goes on
+
+MAX_DIGITS = 200  # a JSON integer longer than this is no id, count or measurement (Python will not print past 4300)
+
+
+class _TooManyDigits(str):
+    """A JSON integer of more than MAX_DIGITS digits, kept as its text so that only the row check touches it."""
+
+
+def _parse_int(text: str) -> int | str:
+    return int(text) if len(text.lstrip("-")) <= MAX_DIGITS else _TooManyDigits(text)
+
+
+def _unusable(v: Any) -> str | None:
+    """Why no store, JSON answer or rejects file can hold `v`, or None."""
+    if isinstance(v, _TooManyDigits) or (isinstance(v, int) and v.bit_length() > 3.33 * MAX_DIGITS):
+        return f"is an integer of more than {MAX_DIGITS} digits"
+    if isinstance(v, str):
+        try:
+            v.encode("utf-8")
+        except UnicodeEncodeError:
+            return "holds a lone surrogate (such as \\ud800), which is not a character; send valid Unicode"
+    return None
+
+
+def _printable(v: Any) -> Any:
+    """`v` with what cannot be written as UTF-8 JSON made visible (for the rejects file and error records)."""
+    if isinstance(v, dict):
+        return {_printable(k): _printable(x) for k, x in v.items()}
+    if isinstance(v, list | tuple):
+        return [_printable(x) for x in v]
+    if isinstance(v, _TooManyDigits) or (isinstance(v, int) and v.bit_length() > 3.33 * MAX_DIGITS):
+        return f"<an integer of more than {MAX_DIGITS} digits>"
+    if isinstance(v, str):
+        return v.encode("utf-8", "backslashreplace").decode("utf-8")
+    return v
+
+
+# ----------------------------------------------------------------------------------------------------------
 # value normalisation
 
 
@@ -301,6 +340,10 @@ class _RowChecker:
 
     def check(self, raw: dict[str, Any], row: int) -> ItemRecord | Reject:
         s = self.schema
+        for name in (s.id, s.label, s.time, *(f.name for f in s.fields)):
+            why = _unusable(raw.get(name)) if name else None
+            if why is not None:
+                return Reject(row=row, field=name, reason=why, raw=_printable(raw))
         try:
             item_id = _as_key(raw.get(s.id), s.id, "an id")
             if item_id is None:
@@ -330,7 +373,7 @@ class _RowChecker:
             except _BadTime as t:
                 arrived, bad_time = None, str(t)
         except _BadValue as bad:
-            return Reject(row=row, field=bad.field_name, reason=bad.reason, raw=dict(raw))
+            return Reject(row=row, field=bad.field_name, reason=bad.reason, raw=_printable(raw))
         if bad_time is not None:
             self.bad_times.append((row, bad_time))
         self.truncated.extend(cut)  # only for rows kept: a rejected row is in the rejects file whole
@@ -486,7 +529,7 @@ class _Reader:
         if not text.strip():
             raise IngestError(f"{self.name}: the file is empty (no rows)")
         try:
-            data = json.loads(text)
+            data = json.loads(text, parse_int=_parse_int)
         except json.JSONDecodeError as exc:
             raise IngestError(
                 f"{self.name}: line {exc.lineno}, column {exc.colno}: not valid JSON: {exc.msg}"
@@ -625,7 +668,7 @@ def _parse_json_line(text: str, lineno: int) -> tuple[int, dict[str, Any]] | Rej
     if not text.strip():
         return None
     try:
-        obj = json.loads(text, object_pairs_hook=_no_repeated_keys)
+        obj = json.loads(text, object_pairs_hook=_no_repeated_keys, parse_int=_parse_int)
     except _RepeatedKey as rep:
         return Reject(row=lineno, field=rep.key, reason=f"the key {rep.key!r} appears twice in this object; "
                       "one value would be dropped", raw={"line": text.rstrip("\r\n")})
