@@ -18,8 +18,8 @@ from typing import Any
 import pytest
 import uvicorn
 
-from triage.service import create_app, server_config
 from triage.app import Workspace
+from triage.service import create_app, server_config
 
 REPO = Path(__file__).resolve().parents[1]
 TICKETS = REPO / "demo_corpus" / "voltwren_tickets.csv"

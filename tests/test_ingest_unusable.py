@@ -17,8 +17,8 @@ from pathlib import Path
 import pytest
 
 from tests.helpers import build_demo_workspace, copy_workspace
+from triage.app import Workspace
 from triage.ingest import Reject, read_jsonl_stream
-from triage.workspace import Workspace
 
 GOOD = ('{"ticket_id": "G-1", "subject": "Invoice wrong", "body": "charged twice", "queue": "billing", '
         '"channel": "email", "product_line": null, "plan": null, "region": null, "tenure_days": 3, '

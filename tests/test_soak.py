@@ -25,8 +25,8 @@ import httpx
 import pytest
 
 from tests.helpers import build_demo_workspace
+from triage.app import Workspace
 from triage.store import Store
-from triage.workspace import Workspace
 
 pytestmark = pytest.mark.skipif(not hasattr(signal, "SIGKILL"), reason="needs POSIX signals")
 

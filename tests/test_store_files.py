@@ -19,8 +19,8 @@ from pathlib import Path
 import pytest
 
 from tests.helpers import build_demo_workspace, copy_workspace
+from triage.app import Workspace
 from triage.store import Store, StoreError, StoreFullError
-from triage.workspace import Workspace
 
 
 @pytest.fixture(scope="module")

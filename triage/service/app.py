@@ -23,9 +23,9 @@ from starlette.requests import Request
 from starlette.responses import Response
 from starlette.routing import Route
 
+from triage.app import Workspace
 from triage.service.guards import BearerToken, BrowserGuard, check_bind
 from triage.service.handlers import Service, unknown_route_error
-from triage.app import Workspace
 
 KEEP_ALIVE_S = 5
 HEADER_TIMEOUT_S = 10.0

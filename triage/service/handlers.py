@@ -23,13 +23,13 @@ import anyio.to_thread
 from starlette.requests import Request
 from starlette.responses import Response
 
+from triage.app import Conflict, NoModel, UnknownItem, Workspace, WorkspaceError
 from triage.service.errors import JSON, ApiError, busy, error_response, is_disk_full, store_failure, to_json
 from triage.service.groups import NotStarted, Pending, RouteGroups
 from triage.service.openapi import openapi_document
 from triage.service.validation import MAX_ID_CHARS, ItemChecker, correction_request
 from triage.store import StoreError
 from triage.store.artifacts import ArtifactError
-from triage.app import Conflict, NoModel, UnknownItem, Workspace, WorkspaceError
 
 log = logging.getLogger(__name__)
 
