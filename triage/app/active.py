@@ -8,22 +8,44 @@ megabytes per correction. Every `SNAPSHOT_EVERY` corrections a full artifact is 
 
 from __future__ import annotations
 
+import logging
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field, replace
+from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from triage.app.errors import Conflict, NoModel, UnknownItem
+from triage.app.errors import Conflict, NoModel, UnknownItem, WorkspaceError
+from triage.core.counts import CountError
 from triage.core.model import NaiveBayes
 from triage.core.routing import RoutingPolicy
-from triage.store import Correction, ModelVersion
-from triage.store.artifacts import load_model, save_model
+from triage.store import Correction, ModelVersion, StoreError
+from triage.store.artifacts import ArtifactError, clean_models_dir, load_model, save_model
+
+log = logging.getLogger(__name__)
 
 if TYPE_CHECKING:
     from triage.app.workspace import Workspace
 
 MODELS_DIR = "models"
 SNAPSHOT_EVERY = 200
+COMMIT_ATTEMPTS = 20  # another process may commit versions quickly (a busy service): retry, with a short wait
+# what can go wrong loading a stored version: its files lost or damaged, a journal entry that does not replay
+LOAD_ERRORS = (ArtifactError, StoreError, WorkspaceError, CountError, ValueError, OSError)
+
+
+@dataclass(frozen=True)
+class LoadProblem:
+    """The store's active version cannot be loaded; `serving` is the version loaded instead (None: none)."""
+
+    version: int
+    why: str
+    serving: int | None
+
+    def message(self) -> str:
+        instead = f"version {self.serving} is served instead" if self.serving is not None else "no model is loaded"
+        return (f"the active model version {self.version} cannot be loaded ({self.why}); {instead}. Roll back "
+                "with `triage models activate N` or run `triage train`")
 
 
 class StaleVersion(Exception):
@@ -48,8 +70,18 @@ class ActiveModel:
 
 def require_model(ws: Workspace) -> ActiveModel:
     if ws._active is None:
+        if ws.load_problem is not None:
+            raise NoModel(f"{ws.root}: {ws.load_problem.message()}")
         raise NoModel(f"{ws.root}: no model yet; run `triage train` first")
     return ws._active
+
+
+def require_writable_model(ws: Workspace) -> ActiveModel:
+    """The active model, for a change that builds a new version on it: refused while the store's active
+    version cannot be loaded (a version built on a stand-in would silently drop the broken one)."""
+    if ws.load_problem is not None:
+        raise Conflict(f"{ws.root}: {ws.load_problem.message()}; nothing was changed")
+    return require_model(ws)
 
 
 def artifact_name(fingerprint: str, suffix: str = "") -> str:
@@ -94,8 +126,45 @@ def version_config(active: ActiveModel, **updates: Any) -> dict[str, Any]:
 
 
 def load_active(ws: Workspace) -> None:
+    """Load the store's active version. One whose files are lost or damaged never locks anyone out: the
+    problem is kept in `ws.load_problem` (commands that need the model say it; rollback and train work), and
+    with `ws.serve_last_good` the newest other version that loads is served in its place (the service)."""
     mv = ws.store.active_model()
-    ws._active = load_version(ws, mv) if mv else None
+    ws.load_problem = None
+    if mv is None:
+        ws._active = None
+        return
+    try:
+        ws._active = load_version(ws, mv)
+        return
+    except LOAD_ERRORS as exc:
+        why = str(exc).replace(f"{ws.root}/", "")
+        log.error("model version %d cannot be loaded: %s", mv.version, why)
+    ws._active = None
+    if ws.serve_last_good:
+        for other in sorted(ws.store.model_versions(), key=lambda v: v.version, reverse=True):
+            if other.version == mv.version:
+                continue
+            try:
+                ws._active = load_version(ws, other)
+                break
+            except LOAD_ERRORS:
+                continue
+    ws.load_problem = LoadProblem(mv.version, why, ws._active.version.version if ws._active else None)
+
+
+def lost_versions(ws: Workspace) -> list[int]:
+    """Versions whose artifact folder is gone (deleted or never finished): they cannot be loaded."""
+    return [mv.version for mv in ws.store.model_versions()
+            if not (ws.root / mv.config.get("base_artifact", mv.artifact) / "manifest.json").exists()]
+
+
+def clean_models(ws: Workspace) -> None:
+    """Remove old temporary folders of interrupted saves and model folders no version names."""
+    referenced = {Path(mv.config.get("base_artifact", mv.artifact)).name for mv in ws.store.model_versions()}
+    referenced |= {Path(mv.artifact).name for mv in ws.store.model_versions()}
+    for gone in clean_models_dir(ws.root / MODELS_DIR, referenced):
+        log.info("removed %s (an interrupted save or a model no version names)", gone)
 
 
 def load_version(ws: Workspace, mv: ModelVersion) -> ActiveModel:
@@ -145,8 +214,8 @@ def commit_correction(ws: Workspace, c: Correction) -> ModelVersion:
         if ws.store.get_correction(c.id).status != "pending":
             raise _AlreadyApplied
 
-    for _attempt in range(5):
-        active = require_model(ws)
+    for attempt in range(COMMIT_ATTEMPTS):
+        active = require_writable_model(ws)
         parent = active.version
         try:
             learn_correction(ws, active, c)
@@ -155,6 +224,7 @@ def commit_correction(ws: Workspace, c: Correction) -> ModelVersion:
                                 note=f"correction {c.id}: {c.item_id} -> {c.to_queue}", inside=still_pending,
                                 after=lambda v: ws.store.apply_correction(c.id, v.version))
         except StaleVersion:
+            time.sleep(0.005 * attempt)
             load_active(ws)
             continue
         except _AlreadyApplied:
@@ -195,7 +265,16 @@ def replay_pending(ws: Workspace) -> None:
         return
     if ws._active is None:
         return  # no model yet: they stay journaled and are learned once a model exists and the workspace opens
+    if ws.load_problem is not None:
+        return  # they wait for a model that loads (rollback or train); nothing is lost, they stay journaled
     with ws.lock:
         for c in pending:
-            if ws.store.get_correction(c.id).status == "pending":  # another process may have finished it
+            if ws.store.get_correction(c.id).status != "pending":  # another process may have finished it
+                continue
+            try:
                 commit_correction(ws, c)
+            except (Conflict, StoreError) as exc:
+                # another process (the one that journaled it, or another replayer) holds the store or keeps
+                # moving the model: it stays journaled and is finished by that process or the next open
+                log.warning("correction %d left pending for now: %s", c.id, exc)
+                return

@@ -6,7 +6,13 @@ from __future__ import annotations
 import difflib
 from typing import TYPE_CHECKING
 
-from triage.app.active import commit_correction, load_active, replay_pending, require_model
+from triage.app.active import (
+    commit_correction,
+    load_active,
+    replay_pending,
+    require_model,
+    require_writable_model,
+)
 from triage.app.decisions import CorrectionReport
 from triage.app.errors import BadInput, UnknownItem, UnknownQueue
 from triage.app.routing import decide_records
@@ -55,7 +61,7 @@ def correct(ws: Workspace, item_id: str, queue: str, by: str = "operator", *,
     with ws.lock:
         ws.refresh_if_changed()  # correct the newest model, whoever activated it
         replay_pending(ws)  # a correction left pending by a failed commit is finished first
-        active = require_model(ws)
+        active = require_writable_model(ws)
         rec = ws.store.get_item(item_id)
         if rec is None:
             raise UnknownItem(f"{ws.store.path}: no item with id {item_id!r}")
@@ -82,7 +88,7 @@ def undo(ws: Workspace, by: str = "operator") -> CorrectionReport:
     """Reverse the newest correction that has not been undone (journaled and learned like any correction)."""
     with ws.lock:
         ws.refresh_if_changed()
-        active = require_model(ws)
+        active = require_writable_model(ws)
         last = ws.store.last_undoable_correction()
         if last is None:
             raise BadInput("there is no correction to undo")

@@ -8,7 +8,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from triage.app.active import require_model
+from triage.app.active import lost_versions, require_model
 from triage.app.errors import UnknownItem
 from triage.app.routing import verdicts_for, watch_word_hits
 from triage.core.evidence import explain as explain_item
@@ -215,4 +215,7 @@ def overview(ws: Workspace) -> dict[str, Any]:
         "corrections_since_training": since,
         "never_auto": sorted(ws.config.never_auto()),
         "latest_batch": {"id": run.id, "source": run.source, **run.summary} if run else None,
+        # versions whose files are gone, and why the active one is not loaded (None when it is)
+        "lost_versions": lost_versions(ws),
+        "model_problem": ws.load_problem.message() if ws.load_problem is not None else None,
     }

@@ -4,6 +4,7 @@ stored with other field values is not routed (decided here, once, for every fron
 from __future__ import annotations
 
 from collections.abc import Iterable, Sequence
+from dataclasses import replace
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -15,7 +16,7 @@ from triage.app.errors import BadInput
 from triage.core.encode import EncodedBatch
 from triage.core.evidence import strongest_batch
 from triage.core.metrics import population_stability_index
-from triage.core.routing import Verdict, decide, plain_words, watch_hits
+from triage.core.routing import HeldBy, Verdict, decide, plain_words, watch_hits
 from triage.ingest import IngestResult, Reject, read_items
 from triage.records import ItemRecord
 from triage.store import Decision
@@ -26,6 +27,12 @@ if TYPE_CHECKING:
 EVIDENCE_TERMS = 8
 CLASH_REASON = ("already stored with other field values (a reopened or changed item); not routed: give it a new id "
                 "or route the stored one")
+# A queue with fewer training items than this (one a correction just created) is never suggested over an
+# established queue: it is shown as the runner-up and the item is held. With a handful of items its tables say
+# little, and least of all about missing values: one item with every field missing gives that queue the largest
+# share of missing-value counts, so it would win every sparse item. 5 is common practice, no source.
+MIN_QUEUE_ITEMS = 5
+HELD_YOUNG = "a new queue is the runner-up until it has"
 # a population stability index above 0.25 is read as a major shift (common practice in credit scoring, no source)
 PSI_FLAG = 0.25
 
@@ -61,7 +68,8 @@ def verdicts_for(ws: Workspace, records: Sequence[ItemRecord]) -> list[Verdict]:
         model = active.model
         batch = model.encoder.transform([r.fields for r in records], allow_missing=True)
         probs = active.policy.calibrated(model.joint_log_likelihood(batch))
-        return decide(probs, model.queues, active.policy, watch_word_hits(ws, records))
+        verdicts = decide(probs, model.queues, active.policy, watch_word_hits(ws, records))
+        return _young_second(verdicts, model.counts.class_count_, active.policy.never_auto)
 
 
 def decide_with_batch(ws: Workspace,
@@ -81,6 +89,7 @@ def decide_batch(active: ActiveModel, records: Sequence[ItemRecord],
     batch = model.encoder.transform([r.fields for r in records], allow_missing=True, keep_unknown=True)
     probs = active.policy.calibrated(model.joint_log_likelihood(batch))
     verdicts = decide(probs, model.queues, active.policy, hits)
+    verdicts = _young_second(verdicts, model.counts.class_count_, active.policy.never_auto)
     top = np.array([v.top_index for v in verdicts])
     runner = np.array([v.runner_up_index for v in verdicts])
     evidence = strongest_batch(model, batch, top, runner, EVIDENCE_TERMS) if len(model.queues) > 1 \
@@ -89,6 +98,24 @@ def decide_batch(active: ActiveModel, records: Sequence[ItemRecord],
     decisions = [_decision(active, r, v, ev, unk)
                  for r, v, ev, unk in zip(records, verdicts, evidence, unknown, strict=True)]
     return decisions, batch
+
+
+def _young_second(verdicts: list[Verdict], items: np.ndarray, never_auto: frozenset[str] | set[str]) -> list[Verdict]:
+    """Put a queue with fewer than MIN_QUEUE_ITEMS items behind an established runner-up (see MIN_QUEUE_ITEMS);
+    a never-auto queue keeps its place (a person sees those items anyway, flagged)."""
+    young = {i for i, n in enumerate(items) if n < MIN_QUEUE_ITEMS}
+    if not young or len(young) == len(items):
+        return verdicts
+    out = []
+    for v in verdicts:
+        if v.top_index in young and v.runner_up_index >= 0 and v.runner_up_index not in young \
+                and v.suggested not in never_auto and v.runner_up is not None:
+            v = replace(v, suggested=v.runner_up, confidence=v.runner_up_confidence, runner_up=v.suggested,
+                        runner_up_confidence=v.confidence, top_index=v.runner_up_index,
+                        runner_up_index=v.top_index, queue=None, held_by=HeldBy.NEW_QUEUE, watch=(),
+                        reason=f"{HELD_YOUNG} {MIN_QUEUE_ITEMS} items ({v.suggested}: {int(items[v.top_index])})")
+        out.append(v)
+    return out
 
 
 def decisions_for(ws: Workspace, records: Sequence[ItemRecord]) -> list[RoutingDecision]:

@@ -325,7 +325,9 @@ def _train(ws: Workspace, engine: Engine, progress: Progress | None, cancel: Cal
             raise Cancelled("training cancelled; the active model is unchanged")
 
     say("reading labelled items", 0.0)
-    with ws.lock:  # the labels and the newest correction are read together
+    # the labels and the journal in one read transaction (one snapshot): a correction committed by another
+    # process between two separate reads would be in neither the items nor the replayed corrections
+    with ws.lock, ws.store.reading():
         recs = labelled(ws)
         journal = ws.store.corrections()
         pending = [c.id for c in journal if c.status == "pending"]
@@ -414,6 +416,7 @@ def save_trained(ws: Workspace, model: NaiveBayes, recs: Sequence[ItemRecord], m
                             inside=learn_newer)
         fresh.version = mv
         ws._active = fresh
+        ws.load_problem = None
     return mv
 
 

@@ -6,7 +6,13 @@ from __future__ import annotations
 from dataclasses import replace
 from typing import TYPE_CHECKING, Any
 
-from triage.app.active import StaleVersion, commit_version, load_version, require_model, version_config
+from triage.app.active import (
+    StaleVersion,
+    commit_version,
+    load_version,
+    require_writable_model,
+    version_config,
+)
 from triage.app.errors import BadInput, Conflict, UnknownQueue
 from triage.app.training import measure
 from triage.store import ModelVersion
@@ -27,6 +33,7 @@ def activate(ws: Workspace, version: int) -> ModelVersion:
         mv = ws.store.activate_model(version)
         loaded.version = mv
         ws._active = loaded
+        ws.load_problem = None
     return mv
 
 
@@ -36,7 +43,7 @@ def set_cutoffs(ws: Workspace, cutoffs: dict[str, float | None], by: str = "oper
 
     A never-auto queue keeps no cutoff whatever is asked: a person sees every item predicted there."""
     with ws.lock:
-        active = require_model(ws)
+        active = require_writable_model(ws)
         unknown = set(cutoffs) - set(active.model.queues)
         if unknown:
             raise UnknownQueue(f"unknown queue(s): {', '.join(sorted(unknown))}")
@@ -52,7 +59,7 @@ def set_cutoffs(ws: Workspace, cutoffs: dict[str, float | None], by: str = "oper
         changed = ", ".join(f"{q} {'none' if c is None else f'{c:.3f}'}" for q, c in sorted(cutoffs.items()))
         for _attempt in range(5):
             ws.refresh_if_changed()  # build on the newest version, whoever made it
-            active = require_model(ws)
+            active = require_writable_model(ws)
             merged = dict(active.policy.cutoffs)
             merged.update({q: None if c is None else float(c) for q, c in cutoffs.items()})
             policy = replace(active.policy, cutoffs=merged)

@@ -13,7 +13,7 @@ from dataclasses import replace
 from pathlib import Path
 
 from triage.app import corrections, review, routing, training, versions
-from triage.app.active import ActiveModel, load_active, load_version, replay_pending
+from triage.app.active import ActiveModel, LoadProblem, clean_models, load_active, replay_pending
 from triage.app.decisions import ImportReport
 from triage.app.errors import Conflict
 from triage.config import Config, ConfigError, dump_config, load_config
@@ -30,26 +30,32 @@ REJECTS_DIR = "rejects"
 class Workspace:
     """One workspace folder. Safe to share between threads: a lock serialises changes to the active model."""
 
-    def __init__(self, root: Path, config: Config, store: Store) -> None:
+    def __init__(self, root: Path, config: Config, store: Store, *, serve_last_good: bool = False) -> None:
         self.root = root
         self.config = config
         self.store = store
         self.lock = threading.RLock()
         self._active: ActiveModel | None = None
+        # set when the store's active version cannot be loaded (see active.load_active); never raised at open
+        self.load_problem: LoadProblem | None = None
+        self.serve_last_good = serve_last_good
         self._config_stamp = self._stamp()
         load_active(self)
         if not store.read_only:  # a read-only copy shows what is stored; pending corrections wait for a writer
+            clean_models(self)
             replay_pending(self)
 
     # ----- opening ---------------------------------------------------------------------------------------
     @classmethod
-    def open(cls, root: Path | str = ".", *, read_only: bool = False) -> Workspace:
+    def open(cls, root: Path | str = ".", *, read_only: bool = False, serve_last_good: bool = False) -> Workspace:
         """Open a workspace folder. `read_only` is for commands that only look (evaluate, explain, models,
         overview): the store is opened read-only, nothing is migrated or written, so they work on a copy
-        on a read-only disk or in a folder this user may only read."""
+        on a read-only disk or in a folder this user may only read. A damaged or missing active model never
+        makes this fail: commands that need it say so, and `serve_last_good` (the service) serves the newest
+        other version that loads."""
         root = Path(root).resolve()
         config = load_config(root / CONFIG_NAME)
-        return cls(root, config, Store.open(root / DB_NAME, read_only=read_only))
+        return cls(root, config, Store.open(root / DB_NAME, read_only=read_only), serve_last_good=serve_last_good)
 
     @property
     def read_only(self) -> bool:
@@ -134,9 +140,14 @@ class Workspace:
             self._reload_config_if_changed()
             mv = self.store.active_model()
             current = self._active.version.version if self._active else None
-            if (mv.version if mv else None) == current:
+            target = mv.version if mv else None
+            if target == current:
+                if self.load_problem is not None and self.load_problem.version != target:
+                    self.load_problem = None  # the stand-in was made the active version (a rollback)
                 return False
-            self._active = load_version(self, mv) if mv else None
+            if self.load_problem is not None and self.load_problem.version == target:
+                return False  # the same version that could not be loaded a moment ago
+            load_active(self)
             return True
 
     # ----- items -----------------------------------------------------------------------------------------

@@ -36,6 +36,7 @@ class HeldBy(StrEnum):
     WATCH_PROBABILITY = "watch_probability"  # a never-auto queue has a real chance
     NO_CUTOFF = "no_cutoff"  # no cutoff meets its top queue's target precision yet
     BELOW_CUTOFF = "below_cutoff"  # its confidence is below its top queue's cutoff
+    NEW_QUEUE = "new_queue"  # its top queue has too few items to be suggested yet (triage.app.routing)
 
     @property
     def safeguard(self) -> bool:

@@ -53,7 +53,7 @@ def create_app(workspace: Path | str, *, token: str | None = None, max_body_byte
         raise ValueError("max_body_bytes, max_batch and workers must be at least 1")
     if not (request_timeout_s > 0 and math.isfinite(request_timeout_s)):
         raise ValueError("request_timeout_s must be a positive number of seconds")
-    ws = Workspace.open(workspace)
+    ws = Workspace.open(workspace, serve_last_good=True)  # a damaged active version never stops serving
     options: dict[str, Any] = {} if min_free_bytes is None else {"min_free_bytes": min_free_bytes}
     svc = Service(ws, max_body_bytes=max_body_bytes, max_batch=max_batch, request_timeout_s=request_timeout_s,
                   workers=workers, **options)

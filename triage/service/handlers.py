@@ -29,7 +29,6 @@ from triage.service.groups import NotStarted, Pending, RouteGroups
 from triage.service.openapi import openapi_document
 from triage.service.validation import MAX_ID_CHARS, ItemChecker, correction_request
 from triage.store import StoreError
-from triage.store.artifacts import ArtifactError
 
 log = logging.getLogger(__name__)
 
@@ -55,7 +54,6 @@ class Service:
         self.limiter = anyio.CapacityLimiter(workers)
         self.workers = workers
         # what health reports without taking any lock: set by the requests that find out
-        self._unloadable: dict[int, str] = {}  # model version -> why it cannot be loaded
         self._last_write_full = False
 
     # -- plumbing ------------------------------------------------------------------------------------------
@@ -79,14 +77,9 @@ class Service:
             lock.release()
 
     def _refresh(self) -> None:
-        try:
-            self.ws.refresh_if_changed()
-        except (ArtifactError, WorkspaceError) as exc:
-            mv = self.ws.store.active_model()
-            if mv is not None and mv.version not in self._unloadable:
-                log.error("model version %d cannot be loaded; still serving %s: %s", mv.version,
-                          self.ws.active_version.version if self.ws.active_version else "none", exc)
-                self._unloadable[mv.version] = self._clean(str(exc))
+        # a version that cannot be loaded is kept as ws.load_problem (health reports it) and the last good one
+        # keeps serving; this never raises for it
+        self.ws.refresh_if_changed()
 
     def _require_model(self, ws: Workspace) -> None:
         if ws.active_version is None:
@@ -161,10 +154,9 @@ class Service:
         """Never waits on the workspace lock or the store: it reads what the requests found out."""
         problems: list[str] = []
         active = self.ws.active_version
-        for version, why in sorted(self._unloadable.items()):
-            if active is None or version != active.version:
-                problems.append(f"model version {version} cannot be loaded ({why}); serving "
-                                f"{'no model' if active is None else f'version {active.version}'}")
+        problem = self.ws.load_problem
+        if problem is not None:
+            problems.append(self._clean(problem.message()))
         try:
             free = shutil.disk_usage(self.ws.root).free
         except OSError as exc:

@@ -198,6 +198,7 @@ class Store:
         self._depth = 0
         self._closed = False
         self.read_only = False
+        self._reading = False
         self._parts: dict[str, str] = {}  # shared config parts by digest (immutable, so cached as text)
 
     # ------------------------------------------------------------------ opening and transactions
@@ -297,6 +298,8 @@ class Store:
             if self.read_only:
                 raise StoreError(f"{self.path}: the workspace is read-only here; this command needs to write "
                                  "(run it on a writable copy)")
+            if self._reading:
+                raise StoreError(f"{self.path}: a write was asked for inside a read transaction")
             if not self._depth and not durable:
                 self._conn.execute("PRAGMA synchronous=NORMAL")
                 try:
@@ -327,6 +330,29 @@ class Store:
                 raise
             finally:
                 self._depth = 0
+
+    @contextmanager
+    def reading(self) -> Iterator[Store]:
+        """One read transaction: every query inside sees the same committed state.
+
+        In WAL mode a transaction's reads all come from one snapshot, taken at its first read, so two queries
+        (the labelled items and the corrections journal, say) cannot straddle a commit of another process.
+        Writes are not allowed inside (they would need the write lock the snapshot may no longer get)."""
+        with self._lock:
+            self._check_open()
+            if self._depth or self._conn.in_transaction:
+                yield self  # already inside a transaction: its view is consistent
+                return
+            try:
+                self._conn.execute("BEGIN DEFERRED")
+            except sqlite3.Error as exc:
+                raise store_error(self.path, exc, "cannot start a read transaction: ") from exc
+            self._reading = True
+            try:
+                yield self
+            finally:
+                self._reading = False
+                self._rollback()  # nothing was written: ending it is all a rollback does
 
     def _rollback(self) -> None:
         """Roll back if a transaction is still open (SQLite may already have ended it on some errors)."""
