@@ -246,8 +246,12 @@ def snapshot(ws: Workspace, active: ActiveModel) -> None:
     fp = active.version.fingerprint
     name = artifact_name(fp, "-s")
     ids, labels = list(active.labels), list(active.labels.values())
-    save_model(active.model, ws.root / name, fingerprint=fp,
-               extra={"policy": active.policy.to_dict(), "trained_ids": ids, "trained_labels": labels})
+    try:
+        save_model(active.model, ws.root / name, fingerprint=fp,
+                   extra={"policy": active.policy.to_dict(), "trained_ids": ids, "trained_labels": labels})
+    except ArtifactError as exc:  # e.g. a full disk: the correction is committed; the snapshot waits
+        log.warning("snapshot of the corrections not written (tried again after the next correction): %s", exc)
+        return
     config = dict(active.version.config)
     config.update({"corrections": [], "base_artifact": name})
     try:
@@ -255,6 +259,9 @@ def snapshot(ws: Workspace, active: ActiveModel) -> None:
                             scorecard=active.version.scorecard, note="snapshot of corrections")
     except StaleVersion:
         return  # another process moved on; its version is loaded at the next refresh, the snapshot is unused
+    except StoreError as exc:  # the folder is an orphan now, removed by a later open
+        log.warning("snapshot of the corrections not recorded: %s", exc)
+        return
     active.version, active.base_artifact, active.corrections = mv, name, []
 
 
