@@ -30,11 +30,11 @@ def test_a_correction_that_waited_past_its_time_is_not_done(base_dir: Path, tmp_
             httpx.Client(base_url=url, timeout=60) as c:
         ws = app.state.workspace
         label_before = ws.store.get_item(trained_ids[0]).label
-        ws._lock.acquire()  # another request holds the workspace, longer than the time limit
+        ws.lock.acquire()  # another request holds the workspace, longer than the time limit
         try:
             r = c.post("/v1/corrections", json={"item_id": trained_ids[0], "queue": "billing"})
         finally:
-            ws._lock.release()
+            ws.lock.release()
         assert r.status_code == 503, r.text
         assert r.headers["retry-after"] == "1"
         assert "nothing was done" in r.json()["error"]

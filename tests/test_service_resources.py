@@ -81,7 +81,7 @@ def test_worker_threads_stay_within_the_pool(served: tuple[str, Any, Path], item
                 answers.append(r.status_code)
 
     app.state.service.request_timeout_s = 0.3
-    ws._lock.acquire()
+    ws.lock.acquire()
     try:
         threads = [threading.Thread(target=run, args=(k,)) for k in range(30)]
         for t in threads:
@@ -91,7 +91,7 @@ def test_worker_threads_stay_within_the_pool(served: tuple[str, Any, Path], item
             peak = max(peak, _workers())
             time.sleep(0.01)
     finally:
-        ws._lock.release()
+        ws.lock.release()
         app.state.service.request_timeout_s = 10.0
     assert answers.count(503) == 30
     assert peak - before <= 3
@@ -101,12 +101,12 @@ def test_worker_threads_stay_within_the_pool(served: tuple[str, Any, Path], item
 def test_health_answers_while_the_workspace_is_busy(served: tuple[str, Any, Path]) -> None:
     url, app, _root = served
     ws = app.state.workspace
-    ws._lock.acquire()  # e.g. an import or a long correction holds it
+    ws.lock.acquire()  # e.g. an import or a long correction holds it
     try:
         with httpx.Client(base_url=url, timeout=30) as c:
             r = c.get("/v1/health")
     finally:
-        ws._lock.release()
+        ws.lock.release()
     assert r.status_code == 200
     assert r.json()["model_version"] == ws.active_version.version
 

@@ -31,10 +31,10 @@ from triage.core.routing import HeldBy
 from triage.core.schema import Schema
 from triage.infer import infer_config
 from triage.ingest import IngestError, Reject, describe_reject, read_jsonl_stream
-from triage.store import StoreError
+from triage.store import StoreBusyError, StoreError, StoreFullError
 from triage.store.artifacts import ArtifactError
 
-__all__ = ["Workspace", "WorkspaceError", "NoModel", "UnknownItem", "UnknownQueue", "Conflict", "BadInput",
+__all__ = ["StoreBusyError", "StoreFullError", "Workspace", "WorkspaceError", "NoModel", "UnknownItem", "UnknownQueue", "Conflict", "BadInput",
            "Cancelled", "ConfigError", "Measurement", "TrainReport", "ImportReport", "CorrectionReport",
            "RoutingDecision", "HeldBy", "records_from_dicts", "Progress", "CONFIG_NAME", "DB_NAME",
            "CountError", "MissingFieldError", "IngestError", "StoreError", "ArtifactError", "USER_ERRORS",

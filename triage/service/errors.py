@@ -13,7 +13,7 @@ from typing import Any
 
 from starlette.responses import Response
 
-from triage.store import StoreBusyError, StoreError, StoreFullError
+from triage.app import StoreBusyError, StoreError, StoreFullError
 
 RETRY_AFTER_S = "1"
 

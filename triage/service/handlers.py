@@ -23,12 +23,20 @@ import anyio.to_thread
 from starlette.requests import Request
 from starlette.responses import Response
 
-from triage.app import Conflict, NoModel, UnknownItem, Workspace, WorkspaceError
+from triage.app import (
+    BadInput,
+    Conflict,
+    NoModel,
+    StoreError,
+    UnknownItem,
+    UnknownQueue,
+    Workspace,
+    WorkspaceError,
+)
 from triage.service.errors import JSON, ApiError, busy, error_response, is_disk_full, store_failure, to_json
 from triage.service.groups import NotStarted, Pending, RouteGroups
 from triage.service.openapi import openapi_document
 from triage.service.validation import MAX_ID_CHARS, ItemChecker, correction_request
-from triage.store import StoreError
 
 log = logging.getLogger(__name__)
 
@@ -67,7 +75,7 @@ class Service:
         A version that cannot be loaded (files lost or damaged) is reported by health and the one already
         loaded keeps serving.
         """
-        lock: threading.RLock = self.ws._lock  # the workspace's own lock (re-entrant), not a second one
+        lock: threading.RLock = self.ws.lock  # the workspace's own lock (re-entrant), not a second one
         if not lock.acquire(timeout=max(deadline - time.monotonic(), 0.0)):
             raise NotStarted
         try:
@@ -203,9 +211,9 @@ class Service:
             self._require_model(ws)
             ready: list[Pending] = []
             for job in group:
+                clash = ws.stored_with_other_fields(job.records)
                 for r, p in zip(job.records, job.prefixes, strict=True):
-                    stored = ws.store.get_item(r.item_id)
-                    if stored is not None and stored.fields != r.fields:
+                    if r.item_id in clash:
                         job.error = ApiError(409, f"item {r.item_id!r} is already stored with other field values; "
                                                   "a corrected item needs a new id", f"{p}id")
                         break
@@ -218,7 +226,7 @@ class Service:
             except (StoreError, OSError) as exc:
                 raise self._failure(exc) from exc
             except WorkspaceError as exc:
-                raise ApiError(409, self._clean(str(exc))) from exc
+                raise ApiError(status_for(exc), self._clean(str(exc))) from exc
             self._last_write_full = False
         at = 0
         for job in ready:
@@ -248,12 +256,10 @@ class Service:
                                         new_queue=req.new_queue)
                 except (StoreError, OSError) as exc:  # e.g. a correction of this item pending in another process
                     raise self._failure(exc, "item_id") from exc
-                except UnknownItem as exc:
-                    raise ApiError(404, self._clean(str(exc)), "item_id") from exc
-                except (NoModel, Conflict) as exc:
-                    raise ApiError(409, self._clean(str(exc))) from exc
-                except WorkspaceError as exc:  # UnknownQueue, BadInput: the queue asked for
-                    raise ApiError(422, self._clean(str(exc)), "queue") from exc
+                except WorkspaceError as exc:
+                    field = "item_id" if isinstance(exc, UnknownItem) else \
+                        None if isinstance(exc, NoModel | Conflict) else "queue"
+                    raise ApiError(status_for(exc), self._clean(str(exc)), field) from exc
                 self._last_write_full = False
                 c = report.correction
                 answer = to_json({"correction_id": c.id, "item_id": c.item_id, "before": report.before,
@@ -270,6 +276,15 @@ class Service:
 
     async def openapi_json(self, request: Request, deadline: float) -> Any:
         return self.openapi
+
+
+def status_for(exc: WorkspaceError) -> int:
+    """The HTTP status of a typed application error: the one table the whole service uses."""
+    for kind, status in ((UnknownItem, 404), (NoModel, 409), (Conflict, 409), (UnknownQueue, 422),
+                         (BadInput, 422)):
+        if isinstance(exc, kind):
+            return status
+    return 422  # any other user-facing problem: the request cannot be served as sent
 
 
 def unknown_route_error(status: int, path: str, method: str, detail: str,

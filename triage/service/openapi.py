@@ -10,7 +10,7 @@ from __future__ import annotations
 import copy
 from typing import Any
 
-from triage.core.schema import Schema
+from triage.app import Schema
 from triage.service.validation import MAX_BY_CHARS, MAX_ID_CHARS, MAX_NAME_CHARS
 
 API_VERSION = "1.1.0"
@@ -180,7 +180,13 @@ OPENAPI: dict[str, Any] = {
                     "reason": {"type": "string"},
                     "runner_up": {"type": ["string", "null"]},
                     "runner_up_confidence": {"type": "number", "minimum": 0, "maximum": 1},
-                    "needs_person": {"type": "boolean"},
+                    "held_by": {"type": ["string", "null"], "enum": ["never_auto", "watch_word",
+                                "watch_probability", "no_cutoff", "below_cutoff", "new_queue", None],
+                                "description": "why it is held; null when routed"},
+                    "flag": {"type": ["string", "null"], "enum": ["never_auto", "watch", None],
+                             "description": "never_auto or watch: a person must see it (from held_by)"},
+                    "watch": {"type": "array", "items": {"type": "string"},
+                              "description": "the watch-word hits or never-auto queues behind a watch hold"},
                     "evidence": {"type": "array", "items": {"$ref": "#/components/schemas/Evidence"}},
                     "unseen_words": {"type": "array", "items": {"type": "string"}},
                     "model_version": {"type": "integer"},

@@ -18,8 +18,7 @@ from dataclasses import dataclass
 from datetime import datetime
 from typing import Any
 
-from triage.core.schema import Schema
-from triage.ingest import Reject, read_jsonl_stream
+from triage.app import Reject, Schema, read_jsonl_stream
 from triage.records import ItemRecord
 from triage.service.errors import ApiError, kind
 
