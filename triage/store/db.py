@@ -16,7 +16,7 @@ import stat
 import threading
 from collections.abc import Iterable, Iterator, Sequence
 from contextlib import contextmanager
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import Any
@@ -779,7 +779,7 @@ class Store:
                     kind,
                     dumps(self._share(config)),
                     fingerprint,
-                    None if scorecard is None else dumps(scorecard),
+                    None if scorecard is None else dumps(self._share({"scorecard": scorecard}, force=True)),
                     artifact,
                     1 if activate else 0,
                     note,
@@ -817,16 +817,17 @@ class Store:
         with self.transaction():
             self._version_row(version)
             self._write(
-                "UPDATE model_versions SET scorecard_json = ? WHERE version = ?", (dumps(scorecard), version)
+                "UPDATE model_versions SET scorecard_json = ? WHERE version = ?",
+                (dumps(self._share({"scorecard": scorecard}, force=True)), version)
             )
 
-    def _share(self, config: dict[str, Any]) -> dict[str, Any]:
+    def _share(self, config: dict[str, Any], force: bool = False) -> dict[str, Any]:
         """Store large parts of a version's config once, by digest, and refer to them (inside a transaction).
 
         A correction version carries its parent's calibration and routing policy unchanged; copying them into
         every version made the store grow by kilobytes per correction."""
         out = dict(config)
-        for key in SHARED_KEYS:
+        for key in (SHARED_KEYS if not force else tuple(config)):
             value = out.get(key)
             if value is None:
                 continue
@@ -854,6 +855,8 @@ class Store:
     def _version(self, row: tuple[Any, ...]) -> ModelVersion:
         mv = _version(row)
         self._resolve(mv.config)
+        if isinstance(mv.scorecard, dict) and set(mv.scorecard) == {"scorecard"}:  # the scorecard, shared
+            return replace(mv, scorecard=self._resolve(dict(mv.scorecard))["scorecard"])
         return mv
 
     def _version_row(self, version: int) -> ModelVersion:
