@@ -78,14 +78,22 @@ def test_a_repeated_idempotency_key_returns_the_first_outcome(base_dir: Path, tm
 
 def test_a_full_disk_is_507_and_nothing_is_journaled(base_dir: Path, tmp_path: Path,
                                                      trained_ids: list[str]) -> None:
+    """Corrections go on until the file can grow no more: every 200 is applied, the first 507 left nothing."""
     with serving(base_dir, tmp_path) as (url, app, root), httpx.Client(base_url=url, timeout=60) as c:
         store = app.state.workspace.store
-        label_before = store.get_item(trained_ids[5]).label
-        pages = store.pragma("page_count")
         with store._lock:
-            store._conn.execute(f"PRAGMA max_page_count = {pages}")
+            store._conn.execute(f"PRAGMA max_page_count = {store.pragma('page_count')}")
+        done: list[dict] = []
         try:
-            r = c.post("/v1/corrections", json={"item_id": trained_ids[5], "queue": "billing"})
+            refused = None
+            for item in trained_ids[:300]:
+                r = c.post("/v1/corrections", json={"item_id": item, "queue": "billing"})
+                if r.status_code != 200:
+                    refused = (item, r)
+                    break
+                done.append(r.json())
+            assert refused is not None, "the store never filled up"
+            item, r = refused
             assert r.status_code == 507, r.text
             assert "disk is full" in r.json()["error"]
             health = c.get("/v1/health").json()
@@ -93,13 +101,16 @@ def test_a_full_disk_is_507_and_nothing_is_journaled(base_dir: Path, tmp_path: P
             big = [{"id": f"full-{i}", "fields": {"body": "word " * 2000}} for i in range(40)]
             r = c.post("/v1/route", json={"items": big})
             assert r.status_code == 507, r.text
+            label_before = store.get_item(item).label
         finally:
             with store._lock:
                 store._conn.execute("PRAGMA max_page_count = 1073741823")
-        assert _journal(root) == []
-        assert store.get_item(trained_ids[5]).label == label_before
+        journal = _journal(root)
+        assert sorted(x.id for x in journal) == sorted(d["correction_id"] for d in done)
+        assert all(x.status == "applied" for x in journal)
+        assert store.get_item(item).label == label_before
         assert store.get_item("full-0") is None
-        r = c.post("/v1/corrections", json={"item_id": trained_ids[5], "queue": "billing"})
+        r = c.post("/v1/corrections", json={"item_id": item, "queue": "billing"})
         assert r.status_code == 200, r.text
         assert c.get("/v1/health").json()["status"] == "ok"
 
