@@ -93,7 +93,8 @@ def test_worker_threads_stay_within_the_pool(served: tuple[str, Any, Path], item
     finally:
         ws.lock.release()
         app.state.service.request_timeout_s = 10.0
-    assert answers.count(503) == 30
+    # each waited past its time and was told so (503; 408 when even its body arrived too late): none done
+    assert len(answers) == 30 and set(answers) <= {408, 503}
     assert peak - before <= 3
     assert max(before, _workers()) <= before + 3
 
