@@ -144,7 +144,7 @@ def test_a_one_item_new_queue_is_never_suggested_over_established_ones(two_versi
         blank = ws.store.labelled_items()[:1]
         empty = {k: None for k in blank[0].fields}
         ws.route_records([type(blank[0])("blank-1", empty, None, None)], "test")
-        ws.correct("blank-1", "warranty", "tester", allow_new_queue=True)
+        ws.correct("blank-1", "warranty", "tester", new_queue=True)
         assert "warranty" in ws.model.queues
         sparse = [type(blank[0])(f"sparse-{i}", {**empty, "subject": s}, None, None)
                   for i, s in enumerate(["help", "question", "hello", "urgent", "call me", "", "status", "?"])]
