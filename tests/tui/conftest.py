@@ -44,6 +44,13 @@ def template_workspace(tmp_path_factory: pytest.TempPathFactory) -> Path:
     return root
 
 
+@pytest.fixture(autouse=True)
+def reviewer_name(monkeypatch: pytest.MonkeyPatch) -> str:
+    """Who decides in these tests (the UI asks when TRIAGE_REVIEWER is not set; one test checks that)."""
+    monkeypatch.setenv("TRIAGE_REVIEWER", "Ada Tester")
+    return "Ada Tester"
+
+
 @pytest.fixture
 def workspace_path(template_workspace: Path, tmp_path: Path) -> Path:
     """A fresh copy of the template workspace for one test."""

@@ -17,7 +17,7 @@ from textual.css.query import NoMatches
 from textual.widgets import Footer, Header, TabbedContent, TabPane
 
 from triage.app import Workspace
-from triage.tui.messages import LabelsChanged, ModelChanged
+from triage.tui.messages import LabelsChanged, ModelChanged, ReviewCount
 from triage.tui.outside import POLL_SECONDS, outside_stamp
 from triage.tui.views import (
     FieldsView,
@@ -93,6 +93,8 @@ class TriageApp(App[None]):
         self.ws = workspace
         self.poll_seconds = poll_seconds
         self.outside: tuple[int, int | None] | None = None  # the store's and the config's change stamps
+        self.reviewer_name: str | None = None  # who decides: TRIAGE_REVIEWER, or asked at the first decision
+        self.review_count: tuple[int, int] | None = None
         self.sub_title = str(workspace.root.name)
 
     def compose(self) -> ComposeResult:
@@ -221,11 +223,20 @@ class TriageApp(App[None]):
         for key, *_ in VIEWS:
             self.view(key).reload()
 
+    def on_review_count(self, message: ReviewCount) -> None:
+        """The count goes on the Review tab and on Overview."""
+        self.review_count = (message.to_review, message.safety)
+        label = f"5 Review ({message.to_review}" + (f", safety {message.safety})" if message.safety else ")")
+        self.query_one(TabbedContent).get_tab("review").label = label
+        self.query_one(OverviewView).show_review_count(message.to_review, message.safety)
+
     def on_labels_changed(self, message: LabelsChanged) -> None:
         for key in ("overview", "models", "scorecard", "fields"):
             self.view(key).reload()
-        if message.undo:
-            self.query_one(ReviewView).rebuild()
+        review = self.query_one(ReviewView)
+        if message.undo or message.item_id not in review.decided:  # undone, or decided in another view
+            review.rebuild()
+        self.query_one(IncomingView).mark_decided(message.item_id, message.queue, message.undo)
 
 
 def make_app(workspace: Path | str) -> TriageApp:

@@ -23,3 +23,11 @@ class LabelsChanged(Message):
     queue: str | None
     version: int
     undo: bool = False
+
+
+@dataclass
+class ReviewCount(Message):
+    """The work order was built: `to_review` held items wait for a person, `safety` of them safety-related."""
+
+    to_review: int
+    safety: int

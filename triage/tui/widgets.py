@@ -13,11 +13,12 @@ from typing import Any
 
 from rich.table import Table
 from rich.text import Text
+from textual import events
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Vertical, VerticalScroll
 from textual.screen import ModalScreen
-from textual.widgets import Button, Label, OptionList, Static
+from textual.widgets import Button, Input, Label, OptionList, Static
 from textual.widgets.option_list import Option
 
 SHADES = " ░▒▓█"
@@ -255,7 +256,11 @@ class ConfirmScreen(ModalScreen[bool]):
 
 
 class QueuePicker(ModalScreen[str | None]):
-    """Choose the queue to send an item to; dismisses with the queue, or None when left with escape."""
+    """Choose the queue to send an item to; dismisses with the queue, or None when left with escape.
+
+    Typing picks as you go: the letters typed so far highlight the first queue that starts with them (else
+    the first that contains them); backspace takes one back.
+    """
 
     BINDINGS = [Binding("escape", "leave", "Back", id="picker.back", tooltip="Send nowhere")]
 
@@ -265,10 +270,12 @@ class QueuePicker(ModalScreen[str | None]):
         self.queues = list(queues)
         self.suggested = suggested
         self.never = set(never_auto)
+        self.typed = ""
 
     def compose(self) -> ComposeResult:
-        with Vertical(id="dialog"):
-            yield Label(f"Send {self.item_id} to which queue?  (enter picks, escape leaves)")
+        with Vertical(id="dialog") as box:
+            box.border_title = f"send {self.item_id} to"
+            yield Label("type to find a queue · enter picks · escape leaves", id="picker-typed")
             options = []
             for q in self.queues:
                 note = "  ← suggested" if q == self.suggested else ""
@@ -282,8 +289,60 @@ class QueuePicker(ModalScreen[str | None]):
         if self.suggested in self.queues:
             ol.highlighted = self.queues.index(self.suggested)
 
+    def match(self, typed: str) -> int | None:
+        """The index of the queue the typed letters point at (prefix first, then anywhere), or None."""
+        t = typed.casefold()
+        for test in (lambda q: q.casefold().startswith(t), lambda q: t in q.casefold()):
+            for i, q in enumerate(self.queues):
+                if test(q):
+                    return i
+        return None
+
+    def on_key(self, event: events.Key) -> None:
+        if event.key == "backspace":
+            self.typed = self.typed[:-1]
+        elif event.character and len(event.character) == 1 and (event.character.isalnum() or event.character in "_-"):
+            self.typed += event.character
+        else:
+            return
+        event.stop()
+        event.prevent_default()
+        i = self.match(self.typed) if self.typed else None
+        label = self.query_one("#picker-typed", Label)
+        if self.typed and i is None:
+            label.update(f"typed: {self.typed}  (no queue has it; backspace)")
+            return
+        label.update(f"typed: {self.typed}" if self.typed else "type to find a queue · enter picks · escape leaves")
+        if i is not None:
+            self.query_one(OptionList).highlighted = i
+
     def on_option_list_option_selected(self, event: OptionList.OptionSelected) -> None:
         self.dismiss(event.option.id)
+
+    def action_leave(self) -> None:
+        self.dismiss(None)
+
+
+class NameScreen(ModalScreen[str | None]):
+    """Ask once who is deciding (their name goes into the corrections journal)."""
+
+    BINDINGS = [Binding("escape", "leave", "Back", id="name.back", tooltip="Decide nothing")]
+
+    def compose(self) -> ComposeResult:
+        with Vertical(id="dialog") as box:
+            box.border_title = "who is deciding?"
+            yield Label("Your name goes into the corrections journal with each decision (set TRIAGE_REVIEWER "
+                        "to skip this question).", id="name-why")
+            yield Input(placeholder="your name, then enter", id="name-input")
+
+    def on_mount(self) -> None:
+        self.query_one(Input).focus()
+
+    def on_input_submitted(self, event: Input.Submitted) -> None:
+        event.stop()
+        name = event.value.strip()
+        if name:
+            self.dismiss(name)
 
     def action_leave(self) -> None:
         self.dismiss(None)

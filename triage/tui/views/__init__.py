@@ -11,9 +11,9 @@ from triage.tui.views.fields import PAIR_ROWS, FieldsView, is_word, merge_table
 from triage.tui.views.incoming import IncomingView, Row
 from triage.tui.views.models import ModelsView, grid_cells, same_setting
 from triage.tui.views.overview import OverviewView
-from triage.tui.views.review import ReviewView, WorkItem, worklist
+from triage.tui.views.review import ReviewView
 from triage.tui.views.scorecard import ScorecardView, cutoff_text
 
 __all__ = ["PAIR_ROWS", "FieldsView", "IncomingView", "ItemDetail", "ModelsView", "OverviewView", "ReviewView",
-           "Row", "ScorecardView", "View", "WorkItem", "cutoff_text", "grid_cells", "is_word", "merge_table",
-           "same_setting", "worklist"]
+           "Row", "ScorecardView", "View", "cutoff_text", "grid_cells", "is_word", "merge_table",
+           "same_setting"]

@@ -14,9 +14,10 @@ from triage.app import Workspace
 from triage.app.review import IncomingRow as Row
 from triage.app.review import incoming
 from triage.tui.views.base import View
+from triage.tui.views.correct import correct, pick_and_correct
 from triage.tui.views.detail import ItemDetail
 from triage.tui.widgets import (
-    num,
+    pct,
 )
 
 PAGE_ROWS = 200
@@ -32,6 +33,9 @@ class IncomingView(View):
         Binding("slash", "search", "Search", id="incoming.search", tooltip="Search in the items' text",
                 key_display="/"),
         Binding("h", "cycle_held", "Held/all", id="incoming.held", tooltip="Show all, only held, or only routed"),
+        Binding("s", "send", "Send to…", id="incoming.send",
+                tooltip="Pick the queue this item belongs to (auto-routed items too: a misroute found later)"),
+        Binding("a", "accept", "Accept", id="incoming.accept", tooltip="The suggested queue is right: learn it"),
     ]
 
     def __init__(self, ws: Workspace, **kw: Any) -> None:
@@ -39,6 +43,7 @@ class IncomingView(View):
         self.rows: list[Row] = []
         self.page = 0
         self.batch_id: int | None = None
+        self.decided: dict[str, str] = {}  # item id -> "decided -> X by NAME" (this session)
 
     def compose(self) -> ComposeResult:
         with Horizontal(id="incoming-filters"):
@@ -53,7 +58,7 @@ class IncomingView(View):
 
     def on_mount(self) -> None:
         t = self.query_one("#incoming-table", DataTable)
-        t.add_columns("item", "suggested", "conf.", "held", "runner-up", "routed to")
+        t.add_columns("item", "suggested", "conf.", "held", "runner-up", "routed to / decided")
         self.reload()
 
     def reload(self) -> None:
@@ -88,13 +93,13 @@ class IncomingView(View):
     def pages(self) -> int:
         return max(1, -(-len(self.rows) // PAGE_ROWS))
 
-    def show_page(self) -> None:
+    def show_page(self, keep: int = 0) -> None:
         t = self.query_one("#incoming-table", DataTable)
         t.clear()
         start = self.page * PAGE_ROWS
         for r in self.rows[start:start + PAGE_ROWS]:
-            t.add_row(r.item_id, r.suggested or "", num(r.confidence), "held" if r.held else "",
-                      r.runner_up or "", r.queue or "—", key=r.item_id)
+            t.add_row(r.item_id, r.suggested or "", pct(r.confidence), "held" if r.held else "",
+                      r.runner_up or "", self.decided.get(r.item_id) or r.queue or "—", key=r.item_id)
         status = self.query_one("#incoming-status", Label)
         if self.batch_id is None:
             status.update("nothing routed yet: `triage route FILE` makes a routing run")
@@ -103,9 +108,40 @@ class IncomingView(View):
             status.update(f"run #{self.batch_id}: {len(self.rows)} decisions match · rows {start + 1 if self.rows else 0}"
                           f"–{end} · page {self.page + 1}/{self.pages} (n/p)")
         if t.row_count:
-            t.move_cursor(row=0)
+            t.move_cursor(row=min(max(keep, 0), t.row_count - 1))
         else:
             self.query_one(ItemDetail).show(None)
+
+    # ----- corrections from this list, routed items included -----
+    def selected(self) -> Row | None:
+        t = self.query_one("#incoming-table", DataTable)
+        if not t.row_count:
+            return None
+        key = t.coordinate_to_cell_key((t.cursor_row, 0)).row_key.value
+        return next((r for r in self.rows if r.item_id == key), None)
+
+    def action_send(self) -> None:
+        r = self.selected()
+        if r is not None:
+            pick_and_correct(self, self.ws, r.item_id, r.suggested, self._done)
+
+    def action_accept(self) -> None:
+        r = self.selected()
+        if r is not None and r.suggested:
+            correct(self, self.ws, r.item_id, r.suggested, self._done)
+
+    def _done(self, item_id: str, queue: str) -> None:
+        self.mark_decided(item_id, queue, False)
+
+    def mark_decided(self, item_id: str, queue: str | None, undo: bool) -> None:
+        """Show "decided -> X by NAME" on the item's row (or take it back after an undo)."""
+        if undo or queue is None:
+            self.decided.pop(item_id, None)
+        else:
+            name = getattr(self.app, "reviewer_name", None) or "someone"
+            self.decided[item_id] = f"decided → {queue} by {name}"
+        if any(r.item_id == item_id for r in self.rows):
+            self.show_page(keep=self.query_one("#incoming-table", DataTable).cursor_row)
 
     def action_page(self, step: int) -> None:
         new = min(max(0, self.page + step), self.pages - 1)

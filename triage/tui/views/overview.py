@@ -26,6 +26,7 @@ class OverviewView(View):
     def compose(self) -> ComposeResult:
         with VerticalScroll(id="overview-scroll"):
             yield Static(id="overview-warning")
+            yield Static(Text("to review: counting…", style="dim"), id="overview-review")
             with Horizontal(id="overview-top"):
                 yield Static(id="overview-model")
                 yield Static(id="overview-batch")
@@ -33,6 +34,13 @@ class OverviewView(View):
 
     def on_mount(self) -> None:
         self.reload()
+
+    def show_review_count(self, n: int, safety: int) -> None:
+        line = Text()
+        line.append(f"to review: {n}", style="bold")
+        line.append(f" (safety {safety})", style="bold red" if safety else "")
+        line.append(" · 5 opens the work order, safety first", style="dim")
+        self.query_one("#overview-review", Static).update(line)
 
     def reload(self) -> None:
         o = self.ws.overview()

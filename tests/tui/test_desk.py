@@ -1,0 +1,85 @@
+"""The review desk in the real app: corrections from Incoming (auto-routed items too), the reviewer's name,
+type-ahead in the queue picker, and the to-review count on the Review tab and on Overview. Each check reads
+the store behind the screen (the corrections journal, the items' labels) or the work order function."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+from textual.widgets import DataTable, Static, TabbedContent
+
+from triage.app.work_order import work_order
+from triage.tui.app import TriageApp
+from triage.tui.views import IncomingView
+from triage.tui.widgets import NameScreen, QueuePicker
+
+from .pilot import run, settle, text_of
+
+
+def test_an_auto_routed_item_is_corrected_from_incoming(workspace_path: Path, reviewer_name: str) -> None:
+    async def go(app: TriageApp, pilot) -> None:  # noqa: ANN001
+        ws = app.ws
+        await pilot.press("4")
+        await settle(app, pilot)
+        view = app.query_one(IncomingView)
+        table = app.query_one("#incoming-table", DataTable)
+        k, row = next((i, r) for i, r in enumerate(view.rows) if not r.held)  # routed: a misroute found later
+        table.move_cursor(row=k)
+        await pilot.pause()
+        other = next(q for q in ws.model.queues if q not in (row.suggested, "safety"))
+        await pilot.press("s")
+        await pilot.pause()
+        picker = app.screen
+        assert isinstance(picker, QueuePicker)
+        for ch in other[:4]:  # type-ahead: the first letters find the queue
+            await pilot.press(ch)
+        await pilot.pause()
+        assert picker.query_one("#queue-options").highlighted == picker.queues.index(other)
+        await pilot.press("enter")
+        await settle(app, pilot)
+        assert ws.store.get_item(row.item_id).label == other
+        journal = ws.store.corrections()
+        assert journal[-1].item_id == row.item_id and journal[-1].by == reviewer_name
+        cells = [str(c) for c in table.get_row(row.item_id)]
+        assert f"decided → {other} by {reviewer_name}" in cells
+
+    run(go, workspace_path)
+
+
+def test_the_reviewer_is_asked_for_a_name_when_none_is_set(workspace_path: Path,
+                                                           monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.delenv("TRIAGE_REVIEWER")
+
+    async def go(app: TriageApp, pilot) -> None:  # noqa: ANN001
+        ws = app.ws
+        await pilot.press("5")
+        await settle(app, pilot)
+        await pilot.press("a")
+        await pilot.pause()
+        assert isinstance(app.screen, NameScreen)
+        assert len(ws.store.corrections()) == 0  # nothing is recorded before someone is named
+        for ch in "Bo Rivera":
+            await pilot.press("space" if ch == " " else ch)
+        await pilot.press("enter")
+        await settle(app, pilot)
+        journal = ws.store.corrections()
+        assert len(journal) == 1 and journal[0].by == "Bo Rivera"
+        # asked once: the next decision uses the same name
+        await pilot.press("down", "a")
+        await settle(app, pilot)
+        assert [c.by for c in ws.store.corrections()] == ["Bo Rivera", "Bo Rivera"]
+
+    run(go, workspace_path)
+
+
+def test_the_to_review_count_is_on_the_tab_and_on_overview(workspace_path: Path) -> None:
+    async def go(app: TriageApp, pilot) -> None:  # noqa: ANN001
+        await settle(app, pilot)
+        order = work_order(app.ws)
+        label = str(app.query_one(TabbedContent).get_tab("review").label)
+        assert label == f"5 Review ({order.to_review}, safety {order.safety})"
+        assert f"to review: {order.to_review} (safety {order.safety})" in text_of(
+            app.query_one("#overview-review", Static))
+
+    run(go, workspace_path)
