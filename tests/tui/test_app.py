@@ -191,7 +191,7 @@ def test_saving_what_if_cutoffs_makes_a_new_active_version(workspace_path: Path)
         expected = sv.meas.rescore(dict(sv.cutoffs))
         assert sv.card.to_dict() == expected.to_dict()
         summary = text_of(app.query_one("#score-summary", Static))
-        assert f"coverage {pct(expected.coverage)}" in summary and "not saved" in summary
+        assert f"auto-routed {pct(expected.coverage)}" in summary and "not saved" in summary
         mine = next(s for s in expected.per_queue if s.queue == q)
         assert table.get_row(q)[6] == pct(mine.coverage)
         # a never-auto queue still refuses a change
@@ -220,7 +220,7 @@ def test_saving_what_if_cutoffs_makes_a_new_active_version(workspace_path: Path)
         # the screen follows: no "not saved", the same figures, models and overview show the new version
         assert sv.changed == {} and sv.saved[q] == new
         summary = text_of(app.query_one("#score-summary", Static))
-        assert "not saved" not in summary and f"coverage {pct(expected.coverage)}" in summary
+        assert "not saved" not in summary and f"auto-routed {pct(expected.coverage)}" in summary
         assert sv.card.to_dict() == ws.evaluate().rescore(dict(sv.saved)).to_dict()
         models = app.query_one("#models-table", DataTable)
         assert models.row_count == n_versions + 1
@@ -497,8 +497,9 @@ def test_incoming_pages_filters_and_search(workspace_path: Path) -> None:
 
 
 def test_marked_text_reads_without_colour() -> None:
-    text = marked_text("Smoke from the battery, please help", {"smoke": 2.0, "please": -0.5})
-    assert text.plain == "[+Smoke] from the battery, [−please] help"
+    # evidence words carry their row number in the weight table; a watch word is marked as a hazard with ⚠
+    text = marked_text("Smoke from the battery, please help", {"smoke": 1, "please": 4}, hazards=["smok"])
+    assert text.plain == "⚠Smoke¹ from the battery, please⁴ help"
     assert shade(0.0) == " " and shade(1.0) == "█" and shade(0.3) != shade(0.9)
 
 

@@ -37,7 +37,7 @@ VIEWS: list[tuple[str, str, type[View], str]] = [
     ("models", "2 Models", ModelsView, "model versions; train, cancel, activate; the settings grid"),
     ("scorecard", "3 Scorecard", ScorecardView, "confusion matrix, per-queue figures, what-if cutoffs"),
     ("incoming", "4 Incoming", IncomingView, "the latest run's decisions and their evidence"),
-    ("review", "5 Review", ReviewView, "held items and likely misroutes; send to a queue, undo"),
+    ("review", "5 Review", ReviewView, "held items, safety first; labels the model disagrees with (d); send to a queue, undo"),
     ("fields", "6 Fields", FieldsView, "value-by-queue counts and smoothed probabilities"),
 ]
 

@@ -22,8 +22,6 @@ from textual.widgets import Button, Input, Label, OptionList, Static
 from textual.widgets.option_list import Option
 
 SHADES = " ░▒▓█"
-FOR_MARK = "+"
-AGAINST_MARK = "−"
 WORD = re.compile(r"\w+", re.UNICODE)
 
 
@@ -96,71 +94,110 @@ def confusion_table(queues: Sequence[str], matrix: Sequence[Sequence[int]],
     return t
 
 
+SUPERSCRIPT = str.maketrans("0123456789", "⁰¹²³⁴⁵⁶⁷⁸⁹")
+HAZARD = "⚠"
+
+
+def note_mark(n: int) -> str:
+    """The superscript number that ties a word in the text to its row in the weight table."""
+    return str(n).translate(SUPERSCRIPT)
+
+
 def evidence_table(terms_for: Sequence[Mapping[str, Any]], terms_against: Sequence[Mapping[str, Any]],
-                   width: int = 14) -> Table:
-    """Bars for the strongest terms for the suggestion and against it (towards the runner-up)."""
+                   width: int = 14, suggested: str = "", runner_up: str = "") -> Table:
+    """The weight table: each term numbered (the same number marks it in the text), its weight in log-odds
+    towards the suggestion, and a bar that points right (▶, for the suggestion) or left (◀, for the runner-up),
+    so direction reads from the shape and the sign, not from colour."""
     top = max([abs(float(t["weight"])) for t in [*terms_for, *terms_against]] or [1.0])
-    t = Table(show_header=True, show_edge=False, pad_edge=False, box=None, padding=(0, 1), expand=False)
-    t.add_column("", no_wrap=True)
+    t = Table(show_header=True, show_edge=False, pad_edge=False, box=None, padding=(0, 1), expand=False,
+              header_style="bold")
+    t.add_column("#", justify="right", no_wrap=True, style="dim")
+    t.add_column(f"◀ {runner_up or 'against'}", justify="right", no_wrap=True)
+    t.add_column("weight", justify="right", no_wrap=True)
+    t.add_column(f"{suggested or 'for'} ▶", no_wrap=True)
     t.add_column("kind", style="dim", no_wrap=True)
     t.add_column("evidence", no_wrap=True, max_width=28, overflow="ellipsis")
-    t.add_column("weight", justify="right", no_wrap=True)
-    t.add_column("", no_wrap=True)
-    for mark, style, terms in ((FOR_MARK, "green", terms_for), (AGAINST_MARK, "red", terms_against)):
+    n = 0
+    for terms in (terms_for, terms_against):
         for term in terms:
+            n += 1
             w = float(term["weight"])
-            t.add_row(Text(mark, style=f"bold {style}"), str(term["kind"]), str(term["feature"]),
-                      f"{w:+.2f}", Text(bar(abs(w), top, width), style=style))
+            b = bar(abs(w), top, width)
+            left = Text(b, style="bold") if w < 0 else ""
+            right = Text(b, style="bold") if w > 0 else ""
+            t.add_row(str(n), left, f"{w:+.2f}", right, str(term["kind"]), str(term["feature"]))
     return t
 
 
-def marked_text(text: str, weights: Mapping[str, float]) -> Text:
-    """The text with evidence words marked: [+word] in green pushes for the suggestion, [−word] in red against."""
+def marked_text(text: str, notes: Mapping[str, int], hazards: Iterable[str] = ()) -> Text:
+    """The text as written, each evidence word followed by its row number in the weight table (superscript),
+    and words that start with a watch word marked as a hazard: ⚠word in reverse video (it reads in any
+    colour depth, and without colour by the ⚠)."""
+    hazards = tuple(h.lower() for h in hazards)
     out = Text()
     pos = 0
     for m in WORD.finditer(text):
-        w = weights.get(m.group(0).lower())
-        if w is None or w == 0:
+        word = m.group(0)
+        k = notes.get(word.lower())
+        hazard = bool(hazards) and word.lower().startswith(hazards)
+        if k is None and not hazard:
             continue
         out.append(text[pos:m.start()])
-        if w > 0:
-            out.append(f"[{FOR_MARK}{m.group(0)}]", style="bold green")
+        if hazard:
+            out.append(f"{HAZARD}{word}", style="bold reverse")
         else:
-            out.append(f"[{AGAINST_MARK}{m.group(0)}]", style="bold red")
+            out.append(word, style="underline")
+        if k is not None:
+            out.append(note_mark(k), style="bold")
         pos = m.end()
     out.append(text[pos:])
     return out
 
 
-def explanation_renderables(ex: Mapping[str, Any], text_fields: Iterable[str]) -> list[Any]:
-    """Header, marked text and evidence bars for one `Workspace.explain` result."""
-    words = {str(t["feature"]).lower(): float(t["weight"])
-             for t in [*ex["for"], *ex["against"]] if t["kind"] == "token"}
+def plain_value(v: Any) -> str:
+    """A field value in plain words: 814.0 reads 814, a missing value reads "—"."""
+    if v is None or (isinstance(v, float) and math.isnan(v)):
+        return "—"
+    if isinstance(v, float) and v.is_integer():
+        return str(int(v))
+    return str(v)
+
+
+def explanation_renderables(ex: Mapping[str, Any], text_fields: Iterable[str],
+                            hazards: Iterable[str] = ()) -> list[Any]:
+    """Header, the text with numbered evidence words, and the weight table for one explanation."""
+    terms = [*ex["for"], *ex["against"]]
+    notes: dict[str, int] = {}
+    for k, term in enumerate(terms, start=1):
+        if term["kind"] == "token":
+            notes.setdefault(str(term["feature"]).lower(), k)
     head = Text()
     head.append(f"{ex['id']}  ", style="bold")
-    head.append(f"suggested {ex['suggested']} {num(ex['confidence'])}")
+    head.append(f"suggested {ex['suggested']} {pct(ex['confidence'])}")
     if ex.get("runner_up"):
-        head.append(f"  runner-up {ex['runner_up']} {num(ex['runner_up_confidence'])}")
-        head.append(f"  gap {ex['log_odds_gap']:.2f} (log-odds)")
+        head.append(f"  runner-up {ex['runner_up']} {pct(ex['runner_up_confidence'])}")
+        margin = 100 * (float(ex["confidence"]) - float(ex["runner_up_confidence"]))
+        head.append(f"  margin {margin:.0f} points")
     head.append("\n")
-    head.append("HELD: " if ex["held"] else "routed: ", style="bold yellow" if ex["held"] else "bold")
+    head.append("HELD: " if ex["held"] else "routed: ", style="bold reverse" if ex["held"] else "bold")
     head.append(str(ex["reason"]))
     if ex.get("label"):
         head.append(f"   label: {ex['label']}", style="bold")
     if ex.get("stored_note"):
-        head.append(f"\n{ex['stored_note']}", style="magenta")
+        head.append(f"\n{ex['stored_note']}", style="italic")
     body = Text()
     for name in text_fields:
         value = ex["fields"].get(name)
         if value:
             body.append(f"{name}: ", style="dim")
-            body.append_text(marked_text(str(value), words))
+            body.append_text(marked_text(str(value), notes, hazards))
             body.append("\n")
-    others = [f"{k}={v}" for k, v in ex["fields"].items() if k not in set(text_fields)]
-    body.append("  ".join(others), style="dim")
+    others = [f"{k} {plain_value(v)}" for k, v in ex["fields"].items() if k not in set(text_fields)]
+    body.append(" · ".join(others), style="dim")
     if ex.get("unseen_words"):
-        body.append(f"\nunseen words: {', '.join(ex['unseen_words'][:12])}", style="dim")
-    return [head, body, evidence_table(ex["for"], ex["against"])]
+        body.append(f"\nwords the model has not seen: {', '.join(ex['unseen_words'][:12])}", style="dim")
+    return [head, body, evidence_table(ex["for"], ex["against"], suggested=str(ex.get("suggested") or ""),
+                                       runner_up=str(ex.get("runner_up") or ""))]
 
 
 def text_plot(xs: Sequence[float], ys: Sequence[float], mark: tuple[float, float] | None = None,

@@ -9,7 +9,6 @@ from textual.widget import Widget
 from triage.app import Workspace
 
 SCAN_CHUNK = 2000
-BY = "tui"
 
 
 def _err(view: Widget, exc: Exception) -> None:

@@ -43,5 +43,6 @@ class ItemDetail(VerticalScroll):
             return
         self.explanation = ex
         names = [f.name for f in self.ws.config.schema.text_fields]
-        body.update(Group(*explanation_renderables(ex, names)))
+        hazards = [w for words in self.ws.config.watch_words().values() for w in words]
+        body.update(Group(*explanation_renderables(ex, names, hazards)))
         self.scroll_home(animate=False)

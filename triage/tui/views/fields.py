@@ -37,15 +37,15 @@ def merge_table(result: dict[str, Any]) -> Group:
     t = Table(box=None, show_edge=False, pad_edge=False, padding=(0, 2), header_style="bold")
     t.add_column("")
     t.add_column("accuracy", justify="right")
-    t.add_column("macro F1", justify="right")
+    t.add_column("avg F1 (queues equal)", justify="right")
     t.add_column("log loss", justify="right")
     for key in ("apart", "merged"):
         r = result[key]
         t.add_row(key, pct(r["accuracy"]), num(r["macro_f1"], 3), num(r["log_loss"], 3))
     head = Text(f"{result['a']} and {result['b']}, apart vs merged into {result['field']} ({result['levels']} "
                 f"values seen), {result['folds']}-fold cross-validated:", style="bold")
-    verdict = (Text("→ merging helps: log loss falls and macro F1 holds", style="bold green") if result["merge_helps"]
-               else Text("→ merging does not help (it would need a lower log loss and no lower macro F1)"))
+    verdict = (Text("→ merging helps: log loss falls and the average F1 holds", style="bold green") if result["merge_helps"]
+               else Text("→ merging does not help (it would need a lower log loss and no lower average F1)"))
     return Group(head, t, verdict)
 
 
@@ -78,12 +78,15 @@ class FieldsView(View):
                 yield Label("smoothed P(value | queue)   (shade: ░▒▓█ by size)", id="field-prob-title")
                 yield DataTable(id="field-probs", cursor_type="none")
                 yield Label("independence given the queue: checking…", id="pairs-title")
+                yield Label("shared information: how much knowing a tells about b once the queue is known; 0 means "
+                            "independent, as the model assumes (in nats: natural-log units)", id="pairs-gloss",
+                            classes="hint")
                 yield DataTable(id="pairs-table", cursor_type="row", zebra_stripes=True)
                 yield Static("", id="merge-result")
 
     def on_mount(self) -> None:
         t = self.query_one("#pairs-table", DataTable)
-        t.add_columns("", "a", "b", "CMI (nats)", "merge")
+        t.add_columns("", "a", "b", "shared info", "merge")
         self.reload()
 
     def reload(self) -> None:
@@ -132,7 +135,7 @@ class FieldsView(View):
             return
         flagged = sum(1 for p in self.pairs if p["flagged"])
         title.update(f"independence given the queue: {self.pairs_checked} pairs checked, {flagged} flagged "
-                     f"(CMI > {tuning.CMI_FLAG:g} nats) · top {len(self.pairs)} · i goes here · m tries a merge")
+                     f"(above {tuning.CMI_FLAG:g}) · top {len(self.pairs)} · i goes here · m tries a merge")
         for k, p in enumerate(self.pairs):
             mark = Text("! dependent", style="bold yellow") if p["flagged"] else ""
             fields = not (is_word(p["a"]) or is_word(p["b"]))

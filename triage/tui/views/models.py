@@ -16,6 +16,7 @@ from triage.app import Cancelled, ModelSpec, Workspace, tuning
 from triage.app.tuning import GridRow
 from triage.tui.messages import ModelChanged
 from triage.tui.views.base import View, _err
+from triage.tui.views.correct import reviewer
 from triage.tui.widgets import (
     ConfirmScreen,
     num,
@@ -29,6 +30,27 @@ def grid_cells(row: GridRow, names: list[str]) -> list[str]:
     return [row.text_model, f"{row.alpha_text:g}", "on" if row.bigrams else "off", "on" if row.fields else "off",
             weights, "on" if row.transforms else "off", pct(row.coverage), num(row.macro_f1, 3), pct(row.accuracy),
             num(row.log_loss, 3)]
+
+
+def cutoff_words(c: float | None) -> str:
+    return "none (hold all)" if c is None else f"{c:.2f}"
+
+
+def hand_set_cutoffs(ws: Workspace) -> dict[str, float | None]:
+    """The active version's cutoffs that differ from those its last training solved (saved by hand since,
+    e.g. from the Scorecard or `triage cutoff`); empty when there are none."""
+    mv = ws.active_version
+    if mv is None:
+        return {}
+    by_version = {v.version: v for v in ws.models()}
+    train = mv
+    while train.kind != "train" and train.parent in by_version:
+        train = by_version[train.parent]
+    if train.version == mv.version or train.kind != "train":
+        return {}
+    now = (mv.config.get("policy") or {}).get("cutoffs") or {}
+    solved = (train.config.get("policy") or {}).get("cutoffs") or {}
+    return {q: c for q, c in now.items() if q in solved and c != solved[q]}
 
 
 def same_setting(row: GridRow, spec: ModelSpec, weights: dict[str, float]) -> bool:
@@ -51,7 +73,7 @@ class ModelsView(View):
         Binding("a", "activate", "Activate", id="models.activate", tooltip="Make the selected version active"),
         Binding("g", "grid", "Grid", id="models.grid",
                 tooltip="Cross-validate every setting of the grid (text model, alpha, bigrams, fields, weights)"),
-        Binding("s", "adopt", "Adopt", id="models.adopt",
+        Binding("s", "adopt", "Use setting", id="models.adopt",
                 tooltip="Write the selected grid row's settings into triage.toml (asks first)"),
     ]
 
@@ -63,7 +85,8 @@ class ModelsView(View):
         self.grid_folds = self.GRID_FOLDS
 
     def compose(self) -> ComposeResult:
-        yield Label("t train · x cancel · a activate version · g settings grid · s adopt grid row", classes="hint")
+        yield Label("t train · x cancel · a activate version · g settings grid · s use a grid row's setting",
+                    classes="hint")
         with Horizontal(id="train-row"):
             yield ProgressBar(total=100, show_eta=False, id="train-progress")
             yield Label("idle", id="train-stage")
@@ -73,7 +96,8 @@ class ModelsView(View):
 
     def on_mount(self) -> None:
         t = self.query_one("#models-table", DataTable)
-        t.add_columns("", "version", "kind", "created (UTC)", "accuracy", "coverage", "note")
+        # the figures each version was saved with (the Scorecard measures the active one on today's labels)
+        t.add_columns("", "version", "kind", "created (UTC)", "accuracy", "auto-routed", "note")
         g = self.query_one("#grid-table", DataTable)
         # the ranking figure (auto-routed) next to the settings, so it shows at 80 columns too
         g.add_columns("", "text model", "alpha", "bigr.", "fields", "weights", "transf.", "auto", "F1", "acc.",
@@ -120,8 +144,27 @@ class ModelsView(View):
     def action_train(self) -> None:
         if self._busy():
             return
+        hand = hand_set_cutoffs(self.ws)
+        if not hand:
+            self._start("starting")
+            self.run_training()
+            return
+        listed = ", ".join(f"{q} {cutoff_words(c)}" for q, c in sorted(hand.items()))
+
+        def answer(keep: bool | None) -> None:
+            if keep:
+                reviewer(self, lambda name: self._train(hand, name))
+            else:
+                self._train(None, None)
+
+        self.app.push_screen(ConfirmScreen(
+            f"The active version has cutoffs set by hand: {listed}.\nTraining solves new cutoffs from the "
+            "targets in triage.toml. Keep yours on the new version?\n  y: keep them (saved on top of the new "
+            "version)\n  n: use the cutoffs training solves"), answer)
+
+    def _train(self, keep: dict[str, float | None] | None, name: str | None) -> None:
         self._start("starting")
-        self.run_training()
+        self.run_training(keep, name)
 
     def action_cancel_training(self) -> None:
         if not (self.training or self.gridding):
@@ -135,7 +178,7 @@ class ModelsView(View):
         self.query_one("#train-stage", Label).update(stage)
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="train")
-    def run_training(self) -> str:
+    def run_training(self, keep: dict[str, float | None] | None = None, name: str | None = None) -> str:
         def progress(stage: str, fraction: float) -> None:
             self.app.call_from_thread(self._progress, stage, fraction)
 
@@ -144,8 +187,14 @@ class ModelsView(View):
         except Cancelled as exc:
             self.app.call_from_thread(self._finished, str(exc), None)
             return "cancelled"
-        self.app.call_from_thread(self._finished, f"version {report.version.version} is active "
-                                  f"({report.n_items} items, {report.seconds:.1f} s)", report.version.version)
+        version = report.version.version
+        what = f"version {version} is active ({report.n_items} items, {report.seconds:.1f} s)"
+        if keep:
+            self.app.call_from_thread(self._progress, "setting your cutoffs again on the new version", 1.0)
+            kept = {q: c for q, c in keep.items() if self.ws.model is not None and q in self.ws.model.queues}
+            version = self.ws.set_cutoffs(kept, by=name or "someone").version
+            what = f"trained, and your cutoffs kept: version {version} is active ({report.n_items} items)"
+        self.app.call_from_thread(self._finished, what, version)
         return "trained"
 
     def _finished(self, what: str, version: int | None) -> None:
@@ -273,6 +322,14 @@ class ModelsView(View):
             self.notify(f"version {version} is already active")
             return
 
+        lacking = [c for c in self.ws.store.corrections(since_version=version)
+                   if c.status == "applied" and c.undo_of is None]
+        lines = "".join(f"\n  {c.item_id} → {c.to_queue or 'no queue'} by {c.by}" for c in lacking[:6])
+        more = f"\n  and {len(lacking) - 6} more" if len(lacking) > 6 else ""
+        missing = (f"\nVersion {version} lacks {len(lacking)} correction{'s' if len(lacking) != 1 else ''} made "
+                   f"since:{lines}{more}\nThey stay in the journal and the labels; the next training learns them."
+                   if lacking else f"\nVersion {version} lacks no correction made since.")
+
         def answer(yes: bool | None) -> None:
             if not yes:
                 return
@@ -285,4 +342,4 @@ class ModelsView(View):
             self.post_message(ModelChanged(version, "activated"))
 
         self.app.push_screen(ConfirmScreen(f"Activate model version {version}? New items will be routed with it, "
-                                           "and corrections learned on top of it."), answer)
+                                           f"and corrections learned on top of it.{missing}"), answer)

@@ -56,8 +56,8 @@ class OverviewView(View):
         m.add_row("text model", str(o["text_model"] or "—"))
         card = o["scorecard"] or {}
         m.add_row("accuracy", pct(card.get("accuracy")))
-        m.add_row("coverage", pct(card.get("coverage")))
-        m.add_row("auto precision", pct(card.get("auto_precision")))
+        m.add_row("auto-routed", pct(card.get("coverage")))
+        m.add_row("their precision", pct(card.get("auto_precision")))
         m.add_row("scored on", f"{card.get('n', '—')} newest, not trained on")
         m.add_row("corrections", f"{o['corrections_since_training']} learned since training")
         self.query_one("#overview-model", Static).update(Group(Text("model", style="bold underline"), m))
@@ -67,7 +67,7 @@ class OverviewView(View):
         batch = o["latest_batch"]
         if batch:
             b.add_row("run", f"#{batch['id']} {Path(batch['source']).name}")
-            b.add_row("routed / held", f"{batch['routed']} / {batch['held']}  (coverage {pct(batch['coverage'])})")
+            b.add_row("routed / held", f"{batch['routed']} / {batch['held']}  ({pct(batch['coverage'])} auto-routed)")
             unseen = batch["unseen_word_share"]
             b.add_row("unseen words", Text(f"{pct(unseen)}" + ("  ! many new words" if unseen > 0.1 else "  ok"),
                                            style="yellow" if unseen > 0.1 else ""))

@@ -15,7 +15,8 @@ from textual.worker import Worker, WorkerState, get_current_worker
 
 from triage.app import Measurement, Scorecard, Workspace
 from triage.tui.messages import ModelChanged
-from triage.tui.views.base import BY, View, _err
+from triage.tui.views.base import View, _err
+from triage.tui.views.correct import reviewer
 from triage.tui.widgets import (
     ConfirmScreen,
     confusion_table,
@@ -31,6 +32,25 @@ CURVE_POINTS = 50
 
 def cutoff_text(c: float | None) -> str:
     return "none" if c is None else f"{c:.2f}"
+
+
+NOTHING = "—"  # a figure about auto-routed items when none were routed: not 0.0%
+BELOW = "▼"  # precision below the queue's target (reads without colour)
+
+
+def queue_cells(qs: Any) -> list[str | Text]:  # a Scorecard's per-queue entry (QueueScore)
+    """One per-queue row: a queue that routed nothing shows "—" for its precision and F1, a precision below the
+    target is marked ▼, and the last cell says what is wrong in words."""
+    routed = qs.routed > 0
+    below = routed and qs.target is not None and qs.precision < qs.target
+    prec: str | Text = pct(qs.precision) if routed else NOTHING
+    if below:
+        prec = Text(f"{pct(qs.precision)} {BELOW}", style="bold red")
+    note = ("a person sees every item" if qs.never_auto else f"{BELOW} below its target" if below else
+            "no cutoff reaches the target" if qs.cutoff is None else "nothing auto-routed" if not routed else "")
+    return [qs.queue, num(qs.target), num(qs.cutoff), prec, pct(qs.recall), num(qs.f1) if routed else NOTHING,
+            pct(qs.coverage), pct(qs.held_share), str(qs.routed), str(qs.support),
+            Text(note, style="bold red" if below else "dim")]
 
 
 class ScorecardView(View):
@@ -66,17 +86,19 @@ class ScorecardView(View):
 
     def compose(self) -> ComposeResult:
         yield Static(id="score-summary")
+        # the per-queue table stays put; the matrix and the charts scroll below it
+        yield DataTable(id="queue-table", cursor_type="row")
         with VerticalScroll(id="score-scroll"):
-            yield DataTable(id="queue-table", cursor_type="row")
             with Horizontal(id="score-lower"):
+                yield Static(id="score-matrix")
                 with Vertical(id="score-charts"):
                     yield Static(id="score-plot")
                     yield Static(id="score-reliability")
-                yield Static(id="score-matrix")
 
     def on_mount(self) -> None:
         t = self.query_one("#queue-table", DataTable)
-        t.add_columns("queue", "target", "cutoff", "prec.", "recall", "F1", "cover.", "held", "routed", "supp.")
+        t.add_columns("queue", "target", "cutoff", "precision", "recall", "F1", "auto-routed", "held", "routed",
+                      "true items", "")
         self.reload()
 
     def reload(self) -> None:
@@ -188,8 +210,8 @@ class ScorecardView(View):
         now, after = self.meas.rescore(dict(self.saved)), self.card
         lines = "\n".join(f"  {q}: {cutoff_text(self.saved.get(q))} -> {cutoff_text(c)}"
                           for q, c in sorted(changed.items()))
-        figures = (f"\nOn the test items: coverage {pct(now.coverage)} -> {pct(after.coverage)}, auto "
-                   f"precision {pct(now.auto_precision)} -> {pct(after.auto_precision)}." if after is not None else "")
+        figures = (f"\nOn the test items: auto-routed {pct(now.coverage)} -> {pct(after.coverage)}, precision of "
+                   f"auto-routed {pct(now.auto_precision)} -> {pct(after.auto_precision)}." if after is not None else "")
         version = self.measured_for
 
         def answer(yes: bool | None) -> None:
@@ -198,11 +220,15 @@ class ScorecardView(View):
 
         self.app.push_screen(ConfirmScreen(
             f"Save these cutoffs as a new model version?\n{lines}{figures}\nNew items are routed with them; "
-            f"activating version {version} again undoes it."), answer)
+            f"activating version {version} again undoes it.\nThe next training solves cutoffs again from the targets "
+            "in triage.toml; training from Models asks whether to keep these instead."), answer)
+
+    def save_cutoffs(self, changed: dict[str, float | None]) -> None:
+        reviewer(self, lambda name: self._save_cutoffs(changed, name))
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="cutoffs")
-    def save_cutoffs(self, changed: dict[str, float | None]) -> int:
-        mv = self.ws.set_cutoffs(changed, by=BY)
+    def _save_cutoffs(self, changed: dict[str, float | None], name: str) -> int:
+        mv = self.ws.set_cutoffs(changed, by=name)
         self.app.call_from_thread(self._saved, mv.version, changed)
         return mv.version
 
@@ -220,8 +246,9 @@ class ScorecardView(View):
             summary.update("no scorecard yet: train a model (2, then t)")
             return
         s = Text()
-        s.append(f"test items {card.n}   accuracy {pct(card.accuracy)}   coverage {pct(card.coverage)}   "
-                 f"auto precision {pct(card.auto_precision)}   macro F1 {num(card.macro_f1)}", style="bold")
+        s.append(f"test items {card.n}   accuracy {pct(card.accuracy)}   auto-routed {pct(card.coverage)}   "
+                 f"precision of auto-routed {pct(card.auto_precision)}   average F1 (queues equal) "
+                 f"{num(card.macro_f1)}", style="bold")
         if self.meas is None:
             s.append("   (stored figures; scoring each item…)", style="dim")
         else:
@@ -230,6 +257,12 @@ class ScorecardView(View):
                          style="bold yellow")
             elif self.measuring:
                 s.append("   (scoring again…)", style="dim")
+            stored = (self.ws.active_version.scorecard or {}) if self.ws.active_version else {}
+            made = stored.get("coverage")
+            if made is not None and not self.changed and abs(float(made) - card.coverage) >= 0.0005:
+                s.append(f"\nModels shows {pct(made)} auto-routed: the figure from when version "
+                         f"{self.measured_for} was made; this one is on today's labels (corrections since)",
+                         style="dim")
             own = [q for q in card.queues if self.saved.get(q) != self.meas.policy.cutoff(q)]
             if own and not self.changed:
                 s.append(f"\nat the active version's cutoffs (`triage evaluate` solves its own on these labels: "
@@ -245,8 +278,8 @@ class ScorecardView(View):
                 c = self.cutoffs.get(qs.queue, qs.cutoff)
                 moved = self.meas is not None and c != self.saved.get(qs.queue)
                 cut = Text(num(c) + ("*" if moved else ""), style="bold yellow" if moved else "")
-            t.add_row(qs.queue, num(qs.target), cut, pct(qs.precision), pct(qs.recall), num(qs.f1), pct(qs.coverage),
-                      pct(qs.held_share), str(qs.routed), str(qs.support), key=qs.queue)
+            t.add_row(*queue_cells(qs), key=qs.queue)
+            t.update_cell(qs.queue, t.ordered_columns[2].key, cut)
         if t.row_count:
             t.move_cursor(row=min(max(row, 0), t.row_count - 1))
         self.query_one("#score-matrix", Static).update(confusion_table(card.queues, card.matrix, card.row_shares()))
