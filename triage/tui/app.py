@@ -9,16 +9,18 @@ from collections.abc import Callable
 from functools import partial
 from pathlib import Path
 
+from rich.text import Text
 from textual import events, work
 from textual.app import App, ComposeResult
 from textual.binding import Binding
 from textual.command import DiscoveryHit, Hit, Hits, Provider
 from textual.css.query import NoMatches
-from textual.widgets import Footer, Header, TabbedContent, TabPane
+from textual.widgets import Footer, Static, TabbedContent, TabPane
 
 from triage.app import Workspace
 from triage.tui.messages import LabelsChanged, ModelChanged, ReviewCount
 from triage.tui.outside import POLL_SECONDS, outside_stamp
+from triage.tui.theme import LEDGER
 from triage.tui.views import (
     FieldsView,
     IncomingView,
@@ -98,7 +100,7 @@ class TriageApp(App[None]):
         self.sub_title = str(workspace.root.name)
 
     def compose(self) -> ComposeResult:
-        yield Header(show_clock=False)
+        yield Static(id="topbar")
         with TabbedContent(initial="overview", id="views"):
             for key, title, cls, _ in VIEWS:
                 with TabPane(title, id=key):
@@ -106,6 +108,9 @@ class TriageApp(App[None]):
         yield Footer(compact=True)
 
     def on_mount(self) -> None:
+        self.register_theme(LEDGER)
+        self.theme = LEDGER.name
+        self.show_topbar()
         self.call_after_refresh(self._focus_active)
         self._fit(self.size.width)
         self.outside = outside_stamp(self.ws)
@@ -115,6 +120,7 @@ class TriageApp(App[None]):
 
     def on_resize(self, event: events.Resize) -> None:
         self._fit(event.size.width)
+        self.label_review_tab()
 
     def _fit(self, width: int) -> None:
         """Wide terminals put panels side by side (the stylesheet keys on the `wide` class)."""
@@ -156,6 +162,7 @@ class TriageApp(App[None]):
         self.notify("read the workspace again")
 
     def reload_all(self) -> None:
+        self.show_topbar()
         for key, *_ in VIEWS:
             self.view(key).reload()
 
@@ -220,14 +227,40 @@ class TriageApp(App[None]):
 
     # ----- messages up: refresh what depends on the change -----
     def on_model_changed(self, message: ModelChanged) -> None:
+        self.show_topbar()
         for key, *_ in VIEWS:
             self.view(key).reload()
 
-    def on_review_count(self, message: ReviewCount) -> None:
-        """The count goes on the Review tab and on Overview."""
-        self.review_count = (message.to_review, message.safety)
-        label = f"5 Review ({message.to_review}" + (f", safety {message.safety})" if message.safety else ")")
+    def show_topbar(self) -> None:
+        """One line of our own: the workspace, the active version and what waits for a person."""
+        mv = self.ws.active_version
+        line = Text()
+        line.append(" triage ", style="bold reverse")
+        line.append(f"  {self.ws.root.name}", style="bold")
+        line.append(f"  ·  model version {mv.version}" if mv else "  ·  no model yet")
+        if self.review_count is not None:
+            n, safety = self.review_count
+            line.append(f"  ·  to review {n}")
+            if safety:
+                line.append(f" (safety {safety})", style="bold")
+        line.append("  ·  ? keys", style="dim")
+        self.query_one("#topbar", Static).update(line)
+
+    def label_review_tab(self) -> None:
+        """"5 Review (N, safety N)"; below 100 columns "5 Review (N)" so that every tab fits (the top line
+        and Overview still give the safety count)."""
+        if self.review_count is None:
+            return
+        n, safety = self.review_count
+        wide = self.size.width >= 100
+        label = f"5 Review ({n}" + (f", safety {safety})" if safety and wide else ")")
         self.query_one(TabbedContent).get_tab("review").label = label
+
+    def on_review_count(self, message: ReviewCount) -> None:
+        """The count goes on the Review tab, on Overview and in the top line."""
+        self.review_count = (message.to_review, message.safety)
+        self.show_topbar()
+        self.label_review_tab()
         self.query_one(OverviewView).show_review_count(message.to_review, message.safety)
 
     def on_labels_changed(self, message: LabelsChanged) -> None:

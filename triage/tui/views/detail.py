@@ -25,6 +25,9 @@ class ItemDetail(VerticalScroll):
         self.item_id: str | None = None
         self.explanation: dict[str, Any] | None = None
 
+    def on_mount(self) -> None:
+        self.border_title = "why: the text, its numbered evidence words and their weights"
+
     def compose(self) -> ComposeResult:
         yield Static("select an item to see why it went where it went", classes="detail-body")
 

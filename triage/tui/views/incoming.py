@@ -29,8 +29,8 @@ class IncomingView(View):
     main_id = "incoming-table"
     BINDINGS = [
         Binding("n,pagedown", "page(1)", "Next page", id="incoming.next", tooltip="The next page of decisions"),
-        Binding("p,pageup", "page(-1)", "Prev page", id="incoming.prev", tooltip="The previous page of decisions"),
-        Binding("slash", "search", "Search", id="incoming.search", tooltip="Search in the items' text",
+        Binding("p,pageup", "page(-1)", "Prev page", show=False, id="incoming.prev", tooltip="The previous page of decisions"),
+        Binding("slash", "search", "Search", show=False, id="incoming.search", tooltip="Search in the items' text",
                 key_display="/"),
         Binding("h", "cycle_held", "Held/all", id="incoming.held", tooltip="Show all, only held, or only routed"),
         Binding("s", "send", "Send to…", id="incoming.send",

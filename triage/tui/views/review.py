@@ -33,11 +33,11 @@ class ReviewView(View):
         Binding("s", "send", "Send to…", id="review.send", tooltip="Pick the queue this item belongs to"),
         Binding("a", "accept", "Accept", id="review.accept", tooltip="The suggested queue is right: learn it"),
         Binding("u", "undo", "Undo", id="review.undo", tooltip="Undo the newest correction"),
-        Binding("d", "toggle_disagreements", "Disagreements", id="review.disagreements",
+        Binding("d", "toggle_disagreements", "Disagree", id="review.disagreements",
                 tooltip="Show or hide stored labels the model disagrees with"),
-        Binding("slash", "search", "Search", id="review.search", tooltip="Filter by item id or words of the reason",
+        Binding("slash", "search", "Search", show=False, id="review.search", tooltip="Filter by item id or words of the reason",
                 key_display="/"),
-        Binding("g", "rebuild", "Rebuild", id="review.rebuild", tooltip="Build the work order again"),
+        Binding("g", "rebuild", "Rebuild", show=False, id="review.rebuild", tooltip="Build the work order again"),
     ]
 
     def __init__(self, ws: Workspace, **kw: Any) -> None:

@@ -87,7 +87,9 @@ class ScorecardView(View):
     def compose(self) -> ComposeResult:
         yield Static(id="score-summary")
         # the per-queue table stays put; the matrix and the charts scroll below it
-        yield DataTable(id="queue-table", cursor_type="row")
+        table = DataTable(id="queue-table", cursor_type="row", classes="panel")
+        table.border_title = "per queue, at the cutoffs (+ - try others)"
+        yield table
         with VerticalScroll(id="score-scroll"):
             with Horizontal(id="score-lower"):
                 yield Static(id="score-matrix")
