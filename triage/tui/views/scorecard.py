@@ -14,9 +14,11 @@ from textual.widgets import DataTable, Static
 from textual.worker import Worker, WorkerState, get_current_worker
 
 from triage.app import Measurement, Scorecard, Workspace
+from triage.app.ranking import cell_items, ranking
 from triage.tui.messages import ModelChanged
 from triage.tui.views.base import View, _err
 from triage.tui.views.correct import reviewer
+from triage.tui.views.ranking import MisroutesScreen, RankingScreen
 from triage.tui.widgets import (
     ConfirmScreen,
     confusion_table,
@@ -69,6 +71,10 @@ class ScorecardView(View):
         Binding("r", "reset", "Reset", id="score.reset", tooltip="Back to the active model's cutoffs"),
         Binding("e", "remeasure", "Re-score", id="score.remeasure",
                 tooltip="Score the test items again with the current labels"),
+        Binding("i", "misroutes", "Misroutes", id="score.misroutes",
+                tooltip="The test items behind the selected queue's row and column of the matrix, with evidence"),
+        Binding("k", "ranking", "Ranking", id="score.ranking",
+                tooltip="The selected queue's test items sorted by its score, with gain and lift (whom to call first)"),
         Binding("c", "toggle_reliability", "Raw/calib.", id="score.reliability", show=False,
                 tooltip="Reliability chart: calibrated confidence or raw posterior (scrolls to it)"),
     ]
@@ -317,6 +323,25 @@ class ScorecardView(View):
         if figs.get("ece_temperature") is not None:
             ece.append(f" · temperature only {num(figs['ece_temperature'], 3)}", style="dim")
         box.update(Group(title, sub, ece, reliability_chart(bins, width=16)))
+
+    def action_misroutes(self) -> None:
+        q = self.selected_queue()
+        if q is None or self.meas is None:
+            self.notify("the test items are still being scored")
+            return
+        items = ([c for c in cell_items(self.meas, label=q) if c.suggested != q]
+                 + [c for c in cell_items(self.meas, suggested=q) if c.label != q])
+        self.app.push_screen(MisroutesScreen(self.ws, q, items))
+
+    def action_ranking(self) -> None:
+        q = self.selected_queue()
+        if q is None or self.meas is None:
+            self.notify("the test items are still being scored")
+            return
+        if q not in self.meas.model_queues:
+            self.notify(f"{q} is not one of the model's queues: train to add it")
+            return
+        self.app.push_screen(RankingScreen(ranking(self.meas, q)))
 
     def action_toggle_reliability(self) -> None:
         """Switch the chart between the calibrated and the raw confidences, and bring it into view (below the
