@@ -13,7 +13,7 @@ from textual.widgets import Static, TabbedContent
 from triage.tui.app import TriageApp
 from triage.tui.widgets import HelpScreen
 
-from .pilot import run, screen_lines, settle
+from .pilot import run, screen_lines, settle, text_of
 
 
 def _pane_of(app: TriageApp) -> str | None:
@@ -88,3 +88,18 @@ def test_a_correction_made_by_another_process_is_noticed(workspace_path: Path) -
         assert len(app.ws.models()) == n
 
     run(go, workspace_path)
+
+
+def test_at_70x20_the_overview_panels_do_not_overlap(workspace_path: Path) -> None:
+    """Each panel's widest line (rendered unconstrained) fits inside its own region, and the regions do not
+    meet: nothing is cut off against the next panel."""
+    async def go(app: TriageApp, pilot) -> None:  # noqa: ANN001
+        await settle(app, pilot)
+        model = app.query_one("#overview-model", Static)
+        run_ = app.query_one("#overview-batch", Static)
+        assert not model.region.overlaps(run_.region)
+        for panel in (model, run_):
+            widest = max(len(line.rstrip()) for line in text_of(panel).splitlines())
+            assert widest <= panel.region.width, (panel.id, widest, panel.region)
+
+    run(go, workspace_path, size=(70, 20))

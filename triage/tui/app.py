@@ -33,6 +33,7 @@ from triage.tui.views import (
 from triage.tui.widgets import HelpScreen
 
 WIDE = 140
+NARROW = 80  # below this, Overview's two panels stack instead of sharing a row
 
 VIEWS: list[tuple[str, str, type[View], str]] = [
     ("overview", "1 Overview", OverviewView, "items, queues, the active model, drift"),
@@ -125,6 +126,7 @@ class TriageApp(App[None]):
     def _fit(self, width: int) -> None:
         """Wide terminals put panels side by side (the stylesheet keys on the `wide` class)."""
         self.set_class(width >= WIDE, "wide")
+        self.set_class(width < NARROW, "narrow")
 
     # ----- views and the focus -----
     def view(self, key: str) -> View:
