@@ -102,7 +102,8 @@ def decide_batch(active: ActiveModel, records: Sequence[ItemRecord],
 
 def _young_second(verdicts: list[Verdict], items: np.ndarray, never_auto: frozenset[str] | set[str]) -> list[Verdict]:
     """Put a queue with fewer than MIN_QUEUE_ITEMS items behind an established runner-up (see MIN_QUEUE_ITEMS);
-    a never-auto queue keeps its place (a person sees those items anyway, flagged)."""
+    a never-auto queue keeps its place (a person sees those items anyway, flagged), and so does an item held by a
+    safeguard (a watch word or a never-auto queue's probability): its safety reason must reach the person."""
     young = {i for i, n in enumerate(items) if n < MIN_QUEUE_ITEMS}
     if not young or len(young) == len(items):
         return verdicts
@@ -110,10 +111,13 @@ def _young_second(verdicts: list[Verdict], items: np.ndarray, never_auto: frozen
     for v in verdicts:
         if v.top_index in young and v.runner_up_index >= 0 and v.runner_up_index not in young \
                 and v.suggested not in never_auto and v.runner_up is not None:
+            safeguard = v.held_by is not None and v.held_by.safeguard
             v = replace(v, suggested=v.runner_up, confidence=v.runner_up_confidence, runner_up=v.suggested,
                         runner_up_confidence=v.confidence, top_index=v.runner_up_index,
-                        runner_up_index=v.top_index, queue=None, held_by=HeldBy.NEW_QUEUE, watch=(),
-                        reason=f"{HELD_YOUNG} {MIN_QUEUE_ITEMS} items ({v.suggested}: {int(items[v.top_index])})")
+                        runner_up_index=v.top_index, queue=None,
+                        **({} if safeguard else dict(
+                            held_by=HeldBy.NEW_QUEUE, watch=(),
+                            reason=f"{HELD_YOUNG} {MIN_QUEUE_ITEMS} items ({v.suggested}: {int(items[v.top_index])})")))
         out.append(v)
     return out
 
