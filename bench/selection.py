@@ -49,7 +49,7 @@ from triage.core.model import TEXT_MODELS, ModelSpec  # noqa: E402
 from triage.core.routing import decide  # noqa: E402
 from triage.core.schema import FieldRole, Schema  # noqa: E402
 from triage.core.selection import fit_rows, out_of_fold_jll, score_jll  # noqa: E402
-from triage.core.tokens import Tokenizer  # noqa: E402
+from triage.core.tokens import Tokenizer, is_bigram  # noqa: E402
 
 ALPHAS = (0.1, 0.5, 1.0)
 TARGET = 0.95
@@ -66,7 +66,7 @@ def view(enc: Encoder, batch: EncodedBatch, bigrams: bool, fields: bool) -> tupl
     if not fields:
         e.schema = Schema(fields=enc.schema.text_fields, id=enc.schema.id, label=enc.schema.label,
                           time=enc.schema.time)
-    cols = np.arange(enc.n_terms) if bigrams else np.array([i for i, t in enumerate(enc.terms_) if " " not in t])
+    cols = np.arange(enc.n_terms) if bigrams else np.array([i for i, t in enumerate(enc.terms_) if not is_bigram(t)])
     e.terms_ = [enc.terms_[i] for i in cols]
     e.vocabulary_ = {t: i for i, t in enumerate(e.terms_)}
     return e, EncodedBatch(batch.X[:, cols].tocsr(), batch.codes if fields else batch.codes[:, :0])

@@ -235,3 +235,17 @@ def test_a_mostly_parseable_time_column_stays_the_time_column(tmp_path: Path) ->
     res = read_items(tmp_path / "tickets.csv", cfg.schema)
     assert len(res.records) == 200 and len(res.bad_times) == 20
     assert sum(r.arrived_at is None for r in res.records) == 20
+
+
+def test_short_code_like_names_are_counted_as_character_grams(tmp_path: Path) -> None:
+    """Package-like names (all distinct, no spaces, mostly letters) become a grams text field, with the reason."""
+    rows = ticket_rows(200)
+    stems = ["python3", "libghc", "golang-github", "node", "fonts", "r-cran"]
+    for i, r in enumerate(rows):
+        r["package"] = f"{stems[i % len(stems)]}-{''.join(chr(97 + (i * 7 + k) % 26) for k in range(5))}{i}"
+    cfg, why = infer_config(write_csv(tmp_path / "t.csv", rows))
+    f = cfg.schema.field("package")
+    assert (f.role, f.pieces) == (FieldRole.TEXT, "grams")
+    assert "character 3-5-grams" in why["package"]
+    assert cfg.schema.field("subject").pieces == "words"
+    assert "order_code" not in {x.name for x in cfg.schema.fields}  # a numeric code stays left out

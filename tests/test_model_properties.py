@@ -26,6 +26,9 @@ SCHEMA = Schema(
     ),
     id="id", label="queue",
 )
+# the same fields with the subject counted as words and character grams too (the grams are counts like the words)
+SCHEMA_GRAMS = Schema(fields=(FieldSpec("subject", FieldRole.TEXT, weight=1.5, pieces="words+grams"),
+                              *SCHEMA.fields[1:]), id="id", label="queue")
 WORDS = ["battery", "invoice", "smoke", "app", "login", "refund", "panel", "late", "VW-104233", "42"]
 NEW_WORDS = ["inverter", "swelling", "wifi"]  # never in the initial training set
 CHANNELS = ["email", "phone", "chat"]
@@ -75,11 +78,11 @@ def _compare_by_name(model: NaiveBayes, fresh: NaiveBayes, items: list[dict]) ->
 
 
 @settings(max_examples=150, deadline=None, suppress_health_check=[HealthCheck.too_slow])
-@given(initial_st, st.lists(op_st, max_size=12), spec_st)
-def test_learn_forget_relabel_equals_fresh_fit(initial, ops, spec) -> None:
+@given(initial_st, st.lists(op_st, max_size=12), spec_st, st.sampled_from([SCHEMA, SCHEMA_GRAMS]))
+def test_learn_forget_relabel_equals_fresh_fit(initial, ops, spec, schema) -> None:
     items = [it for it, _ in initial]
     labels = [lab for _, lab in initial]
-    model = NaiveBayes.fit(SCHEMA, items, labels, spec)
+    model = NaiveBayes.fit(schema, items, labels, spec)
     current = list(initial)
     for op in ops:
         if op[0] == "learn":
@@ -96,7 +99,7 @@ def test_learn_forget_relabel_equals_fresh_fit(initial, ops, spec) -> None:
     final_items = [it for it, _ in current]
     final_labels = [lab for _, lab in current]
     # a fresh fit with the same (grown) encoder; its queues are the sorted names of the final labels
-    fresh = NaiveBayes.fit(SCHEMA, final_items, final_labels, spec, encoder=model.encoder)
+    fresh = NaiveBayes.fit(schema, final_items, final_labels, spec, encoder=model.encoder)
     assert fresh.queues == sorted(set(final_labels))
     # queues known at fit keep their places; later ones are appended in the order they appeared
     assert model.queues[: len(set(labels))] == sorted(set(labels))

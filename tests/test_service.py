@@ -151,7 +151,7 @@ def test_route_one_item_answers_what_the_workspace_decides(
     assert d["id"] == item["id"]
     assert (d["queue"] is None) == d["held"]
     assert d["suggested"] != d["runner_up"]
-    assert d["evidence"] and {e["kind"] for e in d["evidence"]} <= {"token", "field", "prior", "absent"}
+    assert d["evidence"] and {e["kind"] for e in d["evidence"]} <= {"token", "field", "prior", "absent", "layer"}
     # the same answer as the application layer gives in-process, on a second workspace object
     with Workspace.open(live[2]) as other:
         stored = other.store.get_item(item["id"])

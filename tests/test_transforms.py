@@ -277,8 +277,19 @@ def test_grid_covers_weights_and_transforms_and_adopt_writes_them(small_ws) -> N
     assert all(0 <= r.accuracy <= 1 and 0 <= r.coverage <= 1 and np.isfinite(r.log_loss) for r in rows)
     json.dumps([r.to_dict() for r in rows])
 
+    # one criterion, the one train uses (selection.rank_key): coverage at the targets, then macro-F1, log loss
+    from triage.core.selection import rank_key
+
+    ranks = [rank_key(r.coverage, r.macro_f1, r.log_loss) for r in rows]
+    assert ranks == sorted(ranks, reverse=True)
+
     chosen = next(r for r in rows if r.transforms and r.text_weights["subject"] == 3.0)
-    tuning.adopt(small_ws, chosen)
+    before = small_ws.config.model.text_model
+    changes = tuning.adopt(small_ws, chosen)
+    # every change written is reported, and only changes
+    assert ("fields.subject.weight", 2.0, 3.0) in changes and ("model.tf_log", False, True) in changes
+    assert all(old != new for _, old, new in changes)
+    assert (("model.text_model", before, chosen.text_model) in changes) == (before != chosen.text_model)
     text = (small_ws.root / "triage.toml").read_text(encoding="utf-8")
     cfg = config_from_dict(tomllib.loads(text))
     assert cfg.schema.field("subject").weight == 3.0 and cfg.schema.field("body").weight == 1.0

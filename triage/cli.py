@@ -264,6 +264,14 @@ def cmd_train(args: argparse.Namespace) -> int:
         out.print(f"On the {which} {meas.split['test_items']} items (not used to fit): accuracy {_pct(sc.accuracy)}, "
                   f"auto-routed {_pct(sc.coverage)} at precision {_pct(sc.auto_precision)}. `triage evaluate` "
                   "shows the full scorecard.")
+        layer = c.get("score_layer") or {}
+        out.print("Score layer: " + ("on (fitted on out-of-fold scores)." if layer.get("used")
+                                     else f"off: {layer.get('why', 'not fitted')}."), markup=False)
+        closed = [q for q, info in meas.cutoffs.items() if info.get("cutoff") is None and not info.get("never_auto")]
+        if closed:
+            why = meas.cutoffs[closed[0]].get("why", "")
+            out.print(f"{len(closed)} queue(s) auto-route nothing yet ({', '.join(closed[:6])}"
+                      f"{', ...' if len(closed) > 6 else ''}). {closed[0]}: {why}", markup=False, soft_wrap=True)
     return 0
 
 
@@ -529,19 +537,30 @@ def cmd_tune(args: argparse.Namespace) -> int:
             rows = tuning.run_grid(ws, folds=args.folds, progress=update)
         finally:
             stop()
-        if args.adopt:
-            tuning.adopt(ws, rows[0])
+        changes = tuning.adopt(ws, rows[0]) if args.adopt else []
         if args.json:
-            _emit_json({"settings": [r.to_dict() for r in rows], "adopted": rows[0].to_dict() if args.adopt else None})
+            _emit_json({"settings": [r.to_dict() for r in rows], "adopted": rows[0].to_dict() if args.adopt else None,
+                        "changes": [{"key": k, "old": a, "new": b} for k, a, b in changes]})
             return 0
-        t = Table(title=f"{len(rows)} settings, {args.folds}-fold cross-validation, best first", title_justify="left")
-        for col in ("text model", "alpha", "bigrams", "fields", "accuracy", "macro-F1", "log loss",
-                    "auto-routed at target"):
+        t = Table(title=f"{len(rows)} settings, {args.folds}-fold cross-validation, best first (auto-routed at "
+                  "target, then macro-F1, then log loss)", title_justify="left")
+        # every setting that differs between rows gets a column; the ones all rows share are said once below
+        settings = {"text model": lambda r: r.text_model, "alpha": lambda r: f"{r.alpha_text:g}",
+                    "bigrams": lambda r: "yes" if r.bigrams else "no", "fields": lambda r: "yes" if r.fields else "no",
+                    "transforms": lambda r: "yes" if r.transforms else "no",
+                    "weights": lambda r: " ".join(f"{n}={w:g}" for n, w in r.text_weights.items())}
+        differ = [name for name, get in settings.items() if len({get(r) for r in rows}) > 1]
+        for col in (*differ, "accuracy", "macro-F1", "log loss", "auto-routed at target"):
             t.add_column(col, justify="left" if col == "text model" else "right")
         for r in rows[: args.top]:
-            t.add_row(r.text_model, f"{r.alpha_text:g}", "yes" if r.bigrams else "no", "yes" if r.fields else "no",
+            t.add_row(*(settings[c](r) for c in differ),
                       _pct(r.accuracy), f"{r.macro_f1:.3f}", f"{r.log_loss:.3f}", _pct(r.coverage))
         out.print(t)
+        same = [f"{name} {get(rows[0])}" for name, get in settings.items() if name not in differ]
+        if same:
+            out.print("Every row: " + ", ".join(same) + ".", markup=False)
+        for key, old, new in changes:
+            out.print(f"  {key}: {old!r} -> {new!r}", markup=False)
         best = rows[0]
         verb = "Adopted into triage.toml; run `triage train`." if args.adopt else "Adopt it with `triage tune --adopt`."
         out.print(f"Recommended: {best.text_model}, alpha {best.alpha_text:g}, bigrams "

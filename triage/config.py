@@ -13,7 +13,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from triage.core.schema import FieldRole, FieldSpec, Schema
+from triage.core.schema import PIECES, FieldRole, FieldSpec, Schema
 
 TEXT_MODELS = ("multinomial", "bernoulli", "complement", "complement-norm")
 DEFAULT_TARGET_PRECISION = 0.95
@@ -28,7 +28,7 @@ class ConfigError(ValueError):
 # [labels] maps any queue name to another, so neither is listed here.
 TOP_TABLES = ("data", "fields", "model", "routing", "queues", "labels")
 DATA_KEYS = ("id", "label", "time", "max_text_chars")
-FIELD_KEYS = ("role", "weight", "bins", "thousands")
+FIELD_KEYS = ("role", "weight", "bins", "thousands", "pieces")
 ROUTING_KEYS = ("target_precision", "watch_probability")
 QUEUE_KEYS = ("target_precision", "never_auto", "cutoff", "watch_words")
 # thousands separators a number field may declare; with "." the decimal mark is "," (1.200,50)
@@ -51,6 +51,8 @@ class ModelSettings:
     tf_log: bool = False
     idf: bool = False
     length_norm: bool = False
+    # the score layer over the queues' scores (core/stack.py): "auto" = on where the data is large enough
+    score_layer: bool | str = "auto"
 
 
 @dataclass
@@ -226,7 +228,10 @@ def config_from_dict(data: dict[str, Any], path: Path | str = "triage.toml", tex
             if thousands not in THOUSANDS:
                 raise _fail(path, f"fields.{name}.thousands",
                             f"is {thousands!r}; use one of {', '.join(repr(t) for t in THOUSANDS)}")
-        specs.append(FieldSpec(name=name, role=role, weight=weight, bins=bins, thousands=thousands))
+        pieces = spec.get("pieces", "words")
+        if pieces not in PIECES:
+            raise _fail(path, f"fields.{name}.pieces", f"is {pieces!r}; use one of {', '.join(PIECES)}")
+        specs.append(FieldSpec(name=name, role=role, weight=weight, bins=bins, thousands=thousands, pieces=pieces))
     schema = Schema(fields=tuple(specs), id=dat["id"], label=dat["label"], time=dat.get("time"))
 
     m = data.get("model", {})
@@ -251,6 +256,8 @@ def config_from_dict(data: dict[str, Any], path: Path | str = "triage.toml", tex
     for key in ("tf_log", "idf", "length_norm"):
         if not isinstance(getattr(model, key), bool):
             raise _fail(path, f"model.{key}", "must be true or false")
+    if model.score_layer != "auto" and not isinstance(model.score_layer, bool):
+        raise _fail(path, "model.score_layer", f"must be 'auto', true or false, not {model.score_layer!r}")
 
     routing = data.get("routing", {})
     if not isinstance(routing, dict):
@@ -337,6 +344,7 @@ def dump_config(cfg: Config, comments: dict[str, str] | None = None) -> str:
         out.append(f"role = {_toml_value(f.role.value)}")
         if f.role is FieldRole.TEXT:
             out.append(f"weight = {f.weight!r}")
+            out.append(f"pieces = {_toml_value(f.pieces)}")
         if f.role is FieldRole.NUMBER:
             out.append(f"bins = {f.bins}")
             if f.thousands:

@@ -65,6 +65,13 @@ def _is_number(s: str) -> bool:
         return False
 
 
+def _letter_share(values: pd.Series) -> float:
+    """The share of letters among the characters of the values (a package name is mostly letters, an order
+    number mostly digits)."""
+    joined = "".join(values)
+    return sum(ch.isalpha() for ch in joined) / max(len(joined), 1)
+
+
 def _pct(x: float) -> str:
     return f"{100 * x:.0f}%"
 
@@ -162,7 +169,9 @@ def infer_config(
       - time: one column whose name suggests a time (received_at, created, date, time, timestamp, ...) and
         whose values mostly parse as dates, or whose values are not numbers and >= 95% parse as dates.
       - number: >= 95% of the non-empty values parse as numbers (the rest would be rejected on import).
-      - left out: an empty or single-valued column; an all-distinct short code without spaces (not the id).
+      - left out: an empty or single-valued column.
+      - text of character grams (pieces "grams"): a short code without spaces, mostly letters, all distinct or
+        too many-valued for a category (package names, product models); an all-distinct numeric code is left out.
       - text: mean length >= 25 characters, or > 50% distinct and > 30 distinct values, or most values hold
         several words and there are > 30 distinct ones (subjects, job titles). Long text (mean
         >= 60 characters) gets weight 1.0, short text (subjects, titles) weight 2.0.
@@ -233,6 +242,17 @@ def infer_config(
             continue
         mean_len = float(filled.str.len().mean())
         spaced = float(filled.str.contains(r"\s", regex=True).mean())
+        # short codes of letters (package names, product models, e-mail domains): their words rarely repeat,
+        # but their character grams do ("python3-requests", "python3-numpy"); numeric codes share nothing useful
+        code_like = mean_len < TEXT_MIN_MEAN_CHARS and spaced < 0.1 and _letter_share(filled) >= 0.5
+        if code_like and (distinct == len(filled) or distinct > MAX_CATEGORIES and unique_share > 0.2):
+            specs.append(FieldSpec(name=c, role=FieldRole.TEXT, weight=1.0, pieces="grams"))
+            reasons[c] = (
+                f"short code-like text (mean {mean_len:.0f} characters, {_pct(unique_share)} distinct, mostly "
+                "letters, no spaces): counted as character 3-5-grams inside words (pieces = \"grams\"), so codes "
+                "sharing a stem share evidence; weight 1.0"
+            )
+            continue
         if distinct == len(filled) and mean_len < TEXT_MIN_MEAN_CHARS and spaced < 0.1:
             reasons[c] = "left out: every value is distinct, short and without spaces (a code, not the id)"
             continue

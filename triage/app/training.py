@@ -42,14 +42,20 @@ from triage.core.model import ModelSpec, NaiveBayes
 from triage.core.routing import RoutingPolicy, decide
 from triage.core.selection import (
     SettingScore,
+    StackedScores,
     best_setting,
+    coverage_at_targets,
     fit_rows,
     n_folds_for,
     out_of_fold_jll,
     quick_grid,
+    rank_key,
     score_jll,
+    stack_scores,
+    stacked_out_of_fold,
     subset,
 )
+from triage.core.stack import ScoreLayer
 from triage.core.tokens import Tokenizer
 from triage.engine import Engine, EngineError, InProcessEngine, open_engine
 from triage.engine.history import History, stratified_folds
@@ -81,6 +87,7 @@ def spec_from_config(config: Config, **overrides: Any) -> ModelSpec:
         alpha_fields=float(m.alpha_fields), prior=m.prior, bigrams=bool(m.bigrams), min_count=int(m.min_count),
         max_vocab=int(m.max_vocab) if m.max_vocab else None, max_token_chars=int(m.max_token_chars),
         tf_log=bool(m.tf_log), idf=bool(m.idf), length_norm=bool(m.length_norm),
+        score_layer=m.score_layer is not False,  # "auto": on, unless the data is too small (stack.too_small)
     )
     return replace(spec, **overrides)
 
@@ -97,6 +104,32 @@ def fit_policy(config: Config, oof: np.ndarray, y: np.ndarray,
                queues: Sequence[str]) -> tuple[RoutingPolicy, dict[str, Any], dict[str, dict[str, Any]]]:
     """Calibration and cutoffs from out-of-fold scores under the config's rules (see `core.measure`)."""
     return fit_policy_rules(oof, y, queues, cutoff_rules(config, queues))
+
+
+def keep_layer_if_better(ws: Workspace, stacked: StackedScores, labels: Sequence[str]) -> StackedScores:
+    """The layer on or off by the one selection criterion (selection.rank_key) on the same out-of-fold items:
+    it stays only if it does not rank below the naive Bayes scores alone."""
+    if stacked.layer is None or stacked.base is None:
+        return stacked
+    rules = cutoff_rules(ws.config, stacked.queues)
+    ranks = []
+    for scores in (stacked.scores, stacked.base):
+        _acc, f1, ll = score_jll(scores, stacked.queues, labels)
+        ranks.append((rank_key(coverage_at_targets(scores, stacked.queues, labels, rules), f1, ll), f1))
+    if ranks[0][0] >= ranks[1][0]:
+        return stacked
+    (with_layer, f1_l), (without, f1_b) = ranks
+    why = (f"off: on the out-of-fold items it auto-routed {with_layer[0]:.1%} (macro-F1 {f1_l:.3f}) against "
+           f"{without[0]:.1%} (macro-F1 {f1_b:.3f}) without it")
+    return StackedScores(stacked.base, stacked.queues, None, why, stacked.base)
+
+
+def layer_info(stacked: StackedScores) -> dict[str, Any]:
+    """What the scorecard says about the score layer: used (with its size) or off, and why."""
+    if stacked.layer is None:
+        return {"used": False, "why": stacked.why_off}
+    return {"used": True, "items": stacked.layer.n_items, "queues": len(stacked.layer.queues),
+            "C": stacked.layer.C, "fitted_on": "out-of-fold scores"}
 
 
 def labelled(ws: Workspace) -> list[ItemRecord]:
@@ -190,17 +223,22 @@ def measure(ws: Workspace, spec: ModelSpec, recs: Sequence[ItemRecord] | None = 
         queues = history.queues("older")
     else:
         oof, queues = out_of_fold_jll(enc, batch, labels, spec, folds=5)
+    stacked = keep_layer_if_better(ws, stack_scores(oof, queues, labels, spec), labels)
+    oof = stacked.scores
     qi = {q: i for i, q in enumerate(queues)}
     y = np.array([qi[lab] for lab in labels])
     say("choosing cutoffs", 0.5)
     policy, calibration, cutoff_info = fit_policy(ws.config, oof, y, queues)
+    calibration["score_layer"] = layer_info(stacked)
     never, cutoffs = policy.never_auto, dict(policy.cutoffs)
     say("scoring the newest items", 0.7)
     if history is not None:
         model = history.model(spec, "older")
+        model.layer_ = stacked.layer
         test_jll = history.joint_log_likelihood(model, "newer")
     else:
         model = fit_rows(enc, batch, labels, np.arange(len(labels)), spec, queues)
+        model.layer_ = stacked.layer
         test_jll = model.joint_log_likelihood(enc.transform([r.fields for r in newer], allow_missing=True))
     probs = policy.calibrated(test_jll)
     hits = watch_word_hits(ws, newer)
@@ -251,11 +289,13 @@ def measure_kfold(ws: Workspace, spec: ModelSpec, recs: Sequence[ItemRecord] | N
     for f, (train_rows, test) in enumerate(splitter.split(np.zeros(n), y)):
         say(f"fold {f + 1}/{k}: calibrating on the training part", 0.1 + 0.8 * f / k)
         tr_labels = [labels[i] for i in train_rows]
-        inner, inner_queues = out_of_fold_jll(enc, subset(batch, train_rows), tr_labels, spec, folds=5)
+        inner_st = stacked_out_of_fold(enc, subset(batch, train_rows), tr_labels, spec, folds=5)
+        inner, inner_queues = inner_st.scores, inner_st.queues
         if inner_queues != queues:  # n_folds_for keeps every queue in every training part
             raise BadInput(f"fold {f + 1}: a queue is missing from the training part")
         policy, cal, cut = fit_policy(ws.config, inner, y[train_rows], queues)
         model = fit_rows(enc, batch, labels, train_rows, spec, queues)
+        model.layer_ = inner_st.layer
         jll = model.joint_log_likelihood(subset(batch, test))
         probs[test], raw[test], fold_of[test] = policy.calibrated(jll), softmax_rows(jll), f
         policies.append(policy)
@@ -371,7 +411,9 @@ def _fit(ws: Workspace, engine: Engine, recs: list[ItemRecord], say: Progress,
             older_labels = labels[: len(older)]
             jlls = history.out_of_fold_jll(specs, stratified_folds(older_labels, 3), before_each=step)
             queues = history.queues("older")
-            scores = [SettingScore(spec, *score_jll(jll, queues, older_labels))
+            rules = cutoff_rules(ws.config, queues)  # one criterion with tune: selection.rank_key
+            scores = [SettingScore(spec, *score_jll(jll, queues, older_labels),
+                                   coverage_at_targets(jll, queues, older_labels, rules))
                       for spec, jll in zip(specs, jlls, strict=True)]
             best = best_setting(scores)
             selection = [s.to_dict() for s in scores]
@@ -381,6 +423,13 @@ def _fit(ws: Workspace, engine: Engine, recs: list[ItemRecord], say: Progress,
         check()
         say("fitting the final model on every item", 0.8)
         model = history.model(base, "all")
+        if measurement.calibration.get("score_layer", {}).get("used"):
+            check()
+            say("fitting the score layer on out-of-fold scores of every item", 0.85)
+            oof_all = history.out_of_fold_jll([base], stratified_folds(labels, 5), which="all")[0]
+            queues_all = history.queues("all")
+            qi_all = {q: i for i, q in enumerate(queues_all)}
+            model.layer_ = ScoreLayer.fit(oof_all, np.array([qi_all[lab] for lab in labels]), queues_all)
     finally:
         history.close()
     check()

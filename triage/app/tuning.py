@@ -23,8 +23,8 @@ from triage.core.encode import EncodedBatch, Encoder
 from triage.core.metrics import captured_share, conditional_mutual_information, lift_table
 from triage.core.model import TEXT_MODELS
 from triage.core.schema import FieldRole, FieldSpec, Schema
-from triage.core.selection import out_of_fold_jll, score_jll
-from triage.core.tokens import Tokenizer
+from triage.core.selection import out_of_fold_jll, rank_key, score_jll
+from triage.core.tokens import Tokenizer, is_bigram
 
 if TYPE_CHECKING:
     from triage.app.workspace import Workspace
@@ -64,7 +64,7 @@ def _restrict(encoder: Encoder, batch: EncodedBatch, bigrams: bool, fields: bool
                                                label=base_schema.label, time=base_schema.time)
     enc = Encoder(schema, Tokenizer(bigrams=bigrams, max_token_chars=encoder.tokenizer.max_token_chars))
     cols = np.arange(encoder.n_terms) if bigrams else np.array(
-        [i for i, t in enumerate(encoder.terms_) if " " not in t], dtype=np.int64)
+        [i for i, t in enumerate(encoder.terms_) if not is_bigram(t)], dtype=np.int64)
     enc.terms_ = [encoder.terms_[i] for i in cols]
     enc.vocabulary_ = {t: i for i, t in enumerate(enc.terms_)}
     if fields:
@@ -103,7 +103,8 @@ def run_grid(ws: Workspace, folds: int = 5, progress: Any = None) -> list[GridRo
         rows.append(GridRow(model, alpha, bigrams, use_fields, dict(weights), transforms, acc, f1, ll,
                             _coverage(ws, jll, queues, labels)))
     say("done", 1.0)
-    return sorted(rows, key=lambda r: (-r.coverage, -r.macro_f1))
+    # the one criterion train uses too (selection.rank_key): coverage at the targets, macro-F1, log loss
+    return sorted(rows, key=lambda r: rank_key(r.coverage, r.macro_f1, r.log_loss), reverse=True)
 
 
 # the first text field's weights tried (the other text fields at 1); the transforms go with these text models
@@ -156,9 +157,10 @@ def _coverage(ws: Workspace, jll: np.ndarray, queues: list[str], labels: list[st
     return sum(c.get("routed", 0) for q, c in cutoffs.items() if q not in never) / len(y)
 
 
-def adopt(ws: Workspace, row: GridRow) -> None:
+def adopt(ws: Workspace, row: GridRow) -> list[tuple[str, Any, Any]]:
     """Write a grid row's text settings into triage.toml: text model, alpha, bigrams, the transforms in [model]
-    and the text weights in [fields] (fields on/off is reported, not a config setting)."""
+    and the text weights in [fields] (fields on/off is reported, not a config setting). Returns every change
+    written, as (key, old value, new value)."""
     from triage.app.workspace import CONFIG_NAME
     from triage.config import update_config_text, write_config_atomically
 
@@ -168,6 +170,11 @@ def adopt(ws: Workspace, row: GridRow) -> None:
         ("model", "length_norm"): row.transforms,
     }
     updates.update({(f"fields.{name}", "weight"): float(w) for name, w in row.text_weights.items()})
+    weights = {f.name: f.weight for f in ws.config.schema.text_fields}
+    before = {(sec, key): (weights.get(sec.split(".", 1)[1]) if sec.startswith("fields.")
+                           else getattr(ws.config.model, key)) for sec, key in updates}
+    changes = [(f"{sec}.{key}", before[(sec, key)], new) for (sec, key), new in updates.items()
+               if before[(sec, key)] != new]
     path = ws.root / CONFIG_NAME
     write_config_atomically(path, update_config_text(path.read_text(encoding="utf-8"), updates))
     ws.config.model.text_model = row.text_model
@@ -175,6 +182,7 @@ def adopt(ws: Workspace, row: GridRow) -> None:
     ws.config.model.bigrams = row.bigrams
     ws.config.model.tf_log = ws.config.model.idf = ws.config.model.length_norm = row.transforms
     ws.config.schema = _with_weights(ws.config.schema, row.text_weights)
+    return changes
 
 
 def lift_for(ws: Workspace, queue: str) -> dict[str, Any]:

@@ -1,6 +1,7 @@
 """Encoding items for the model: text fields to token counts, category fields to codes, numbers to bins.
 
-All text fields share one vocabulary: a word in the subject and the same word in the body are the same evidence,
+A text field is counted as its words, its character 3-5-grams (marked terms, see tokens.grams), or both, as its
+`pieces` says. All text fields share one vocabulary: a word in the subject and the same word in the body are the same evidence,
 and a field's `weight` says how much one occurrence counts (a subject word at weight 2 counts twice). One shared
 vocabulary keeps the model small and lets short fields borrow strength from long ones; the price is that the
 model cannot tell where a word appeared, which the weights partly make up for.
@@ -123,12 +124,12 @@ class Encoder:
         indices = array("i")  # 4 bytes an entry: vocabularies stay far below 2**31
         data = array("d")
         text_fields = self.schema.text_fields
-        tokens = self.tokenizer.tokens
+        pieces = self.tokenizer.pieces
         for item in items:
             acc: dict[int, float] = {}
             for f in text_fields:
                 w = f.weight
-                for tok in tokens(self._get(item, f, False)):
+                for tok in pieces(self._get(item, f, False), f.pieces):
                     j = provisional.get(tok)
                     if j is None:
                         j = provisional[tok] = len(occurrences)
@@ -183,7 +184,7 @@ class Encoder:
         words wait for the next training; category values are never pruned and always grow."""
         new_tokens = 0
         for f in () if self.pruned_ else self.schema.text_fields:
-            for tok in self.tokenizer.tokens(self._get(item, f, True)):
+            for tok in self.tokenizer.pieces(self._get(item, f, True), f.pieces):
                 if tok not in self.vocabulary_:
                     self.vocabulary_[tok] = len(self.terms_)
                     self.terms_.append(tok)
@@ -248,7 +249,7 @@ class Encoder:
         vocab = self.vocabulary_
         for f in self.schema.text_fields:
             w = f.weight
-            for tok in self.tokenizer.tokens(self._get(item, f, allow_missing)):
+            for tok in self.tokenizer.pieces(self._get(item, f, allow_missing), f.pieces):
                 j = vocab.get(tok)
                 if j is None:
                     unknown.append(tok)
@@ -331,13 +332,13 @@ class Encoder:
         text_fields = self.schema.text_fields
         value_fields = self.schema.value_fields
         vocab = self.vocabulary_
-        tokens = self.tokenizer.tokens
+        pieces = self.tokenizer.pieces
         buffers = [(array("q", [0]), array("q"), array("d")) for _ in text_fields]
         codes = np.empty((len(items), len(value_fields)), dtype=np.int64)
         for i, item in enumerate(items):
             for f, (indptr, indices, data) in zip(text_fields, buffers, strict=True):
                 acc: dict[int, float] = {}
-                for tok in tokens(self._get(item, f, allow_missing)):
+                for tok in pieces(self._get(item, f, allow_missing), f.pieces):
                     j = vocab.get(tok)
                     if j is not None:
                         acc[j] = acc.get(j, 0.0) + 1.0

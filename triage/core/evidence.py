@@ -18,7 +18,8 @@ from triage.core.model import NaiveBayes
 
 @dataclass(frozen=True)
 class Contribution:
-    """One additive term. kind: prior | token | field | absent (a word the item lacks; Bernoulli only)."""
+    """One additive term. kind: prior | token | field | absent (a word the item lacks; Bernoulli only) | layer
+    (the score layer's offset between the two queues)."""
 
     kind: str
     feature: str
@@ -61,6 +62,53 @@ def _finite_diff(x: np.ndarray, y: np.ndarray) -> np.ndarray:
     return np.where(np.isnan(d), 0.0, d)  # -inf - -inf: impossible under both, no evidence either way
 
 
+LAYER_OFFSET = "score layer (queue offset)"
+ABSENT_WORDS = "words the item lacks"
+
+
+def _token_table(model: NaiveBayes) -> np.ndarray:
+    """(Q, V) score of one occurrence of each term per queue (Bernoulli: of its presence)."""
+    if model.spec.text_model == "bernoulli":
+        return model.A_
+    return (model.A_ + model.B_[:, None]) * model.scale_[:, None]
+
+
+def _project(u: np.ndarray, v: np.ndarray) -> np.ndarray:
+    """u . v over the queue axis (last of u, first of v); an impossible (-inf) score adds nothing."""
+    return u @ np.where(np.isfinite(v), v, 0.0)
+
+
+def _explain_through_layer(model: NaiveBayes, item: EncodedItem, jll: np.ndarray, a: int, b: int) -> Evidence:
+    """Each piece's share of f_a - f_b through the score layer: u . v_piece (stack.ScoreLayer.direction), where
+    v_piece is the piece's vector of naive Bayes scores over all queues. The pieces' vectors sum to the item's
+    naive Bayes scores, so the shares plus the layer's offset b_a - b_b sum to the gap exactly."""
+    layer = model.layer_
+    assert layer is not None
+    u = layer.direction(a, b)
+    base = model.base_scores_one(item)
+    terms = [Contribution("prior", "queue size (prior)", float(_project(u, model.log_prior_)))]
+    used = np.where(np.isfinite(model.log_prior_), model.log_prior_, 0.0)
+    ids, counts = item.token_ids, item.token_counts
+    if ids.size:
+        V = _token_table(model)[:, ids] * (1.0 if model.spec.text_model == "bernoulli" else counts)
+        w = _project(u, V)
+        used = used + np.where(np.isfinite(V), V, 0.0).sum(axis=1)
+        terms.extend(Contribution("token", model.encoder.terms_[j], float(x), float(m))
+                     for j, x, m in zip(ids.tolist(), w.tolist(), counts.tolist(), strict=True))
+    for k, f in enumerate(model.encoder.schema.value_fields):
+        code = int(item.codes[k])
+        v = model.field_log_[k][:, code]
+        used = used + np.where(np.isfinite(v), v, 0.0)
+        terms.append(Contribution("field", f"{f.name} = {model.encoder.field_labels(f)[code]}",
+                                  float(_project(u, v))))
+    rest = np.where(np.isfinite(base), base, 0.0) - used  # Bernoulli: the absent words and constants; else ~0
+    if model.spec.text_model == "bernoulli":
+        terms.append(Contribution("absent", ABSENT_WORDS, float(_project(u, rest))))
+    terms.append(Contribution("layer", LAYER_OFFSET, float(layer.intercept[a] - layer.intercept[b])))
+    gap = float(_finite_diff(jll[a:a + 1], jll[b:b + 1])[0])
+    return Evidence(model.queues[a], model.queues[b], gap, terms, item.unknown_tokens)
+
+
 def explain(model: NaiveBayes, item: EncodedItem, top: int | None = None, runner_up: int | None = None,
             *, absent_detail: int = 3) -> Evidence:
     """Evidence for queue index `top` against `runner_up` (default: the two highest-scoring queues)."""
@@ -72,6 +120,8 @@ def explain(model: NaiveBayes, item: EncodedItem, top: int | None = None, runner
     order = np.argsort(-jll, kind="stable")
     a = int(order[0]) if top is None else top
     b = int(order[1] if order[0] == a else order[0]) if runner_up is None else runner_up
+    if model.layer_active:
+        return _explain_through_layer(model, item, jll, a, b)
     terms: list[Contribution] = []
     terms.append(Contribution("prior", "queue size (prior)",
                               float(_finite_diff(model.log_prior_[a:a + 1], model.log_prior_[b:b + 1])[0])))
@@ -141,6 +191,8 @@ def strongest_batch(model: NaiveBayes, batch: EncodedBatch, top: np.ndarray, run
     owners: list[np.ndarray] = []
     refs: list[np.ndarray] = []
     counts_all: list[np.ndarray] = []
+    if model.layer_active:
+        return _strongest_through_layer(model, batch, top, runner_up, k)
     if model.spec.text_model == "bernoulli":
         c, alpha = model.counts, model.spec.alpha_text
         df, N = c.doc_freq_, c.class_count_
@@ -177,6 +229,12 @@ def strongest_batch(model: NaiveBayes, batch: EncodedBatch, top: np.ndarray, run
     owners.append(np.arange(n))
     refs.append(np.zeros(n, dtype=np.int64))
     counts_all.append(np.ones(n))
+    return _pick(model, n, k, kinds, weights, owners, refs, counts_all)
+
+
+def _pick(model: NaiveBayes, n: int, k: int, kinds: list[np.ndarray], weights: list[np.ndarray],
+          owners: list[np.ndarray], refs: list[np.ndarray], counts_all: list[np.ndarray]) -> list[list[Contribution]]:
+    """The k strongest terms per item from flat arrays of (kind, weight, owner item, reference, count)."""
     kind, weight, owner, ref, count = (np.concatenate(x) for x in (kinds, weights, owners, refs, counts_all))
     order = np.lexsort((-np.abs(weight), owner))
     owner_sorted = owner[order]
@@ -195,8 +253,63 @@ def strongest_batch(model: NaiveBayes, batch: EncodedBatch, top: np.ndarray, run
             f_idx, code = divmod(r, 1 << 32)
             item = Contribution("field", f"{fields[f_idx].name} = {labels[f_idx][code]}", w)
         elif kd == 3:
-            item = Contribution("absent", "words the item lacks", w)
+            item = Contribution("absent", ABSENT_WORDS, w)
+        elif kd == 4:
+            item = Contribution("layer", LAYER_OFFSET, w)
         else:
             item = Contribution("prior", "queue size (prior)", w)
         out[int(owner[i])].append(item)
     return out
+
+
+def _strongest_through_layer(model: NaiveBayes, batch: EncodedBatch, top: np.ndarray, runner_up: np.ndarray,
+                             k: int) -> list[list[Contribution]]:
+    """strongest_batch through the score layer: the same shares as _explain_through_layer, for a whole batch."""
+    layer = model.layer_
+    assert layer is not None
+    n = len(batch)
+    D = layer.weights[top] - layer.weights[runner_up]
+    U = (D - D.mean(axis=1, keepdims=True)) / layer.scale  # (n, Q): one direction per item
+    X = batch.X
+    rows = np.repeat(np.arange(n), np.diff(X.indptr))
+    cols = X.indices.astype(np.int64)
+    bern = model.spec.text_model == "bernoulli"
+    m = np.ones(cols.size) if bern else model._text_input(X).data
+    T = _token_table(model)
+    T = np.where(np.isfinite(T), T, 0.0)
+    w_tok = np.empty(cols.size)
+    step = 1 << 16  # entries at a time: bounds the (entries, queues) temporary to a few megabytes per queue
+    for lo in range(0, cols.size, step):
+        hi = min(lo + step, cols.size)
+        w_tok[lo:hi] = np.einsum("iq,qi->i", U[rows[lo:hi]], T[:, cols[lo:hi]]) * m[lo:hi]
+    prior = np.where(np.isfinite(model.log_prior_), model.log_prior_, 0.0)
+    kinds = [np.full(cols.size, 1), np.zeros(n, dtype=np.int64)]
+    weights = [w_tok, U @ prior]
+    owners = [rows, np.arange(n)]
+    refs = [cols, np.zeros(n, dtype=np.int64)]
+    counts_all = [m, np.ones(n)]
+    total = np.bincount(rows, weights=w_tok, minlength=n) + weights[1]
+    for f_idx, table in enumerate(model.field_log_):
+        code = batch.codes[:, f_idx]
+        tab = np.where(np.isfinite(table), table, 0.0)
+        w = np.einsum("iq,qi->i", U, tab[:, code])
+        total += w
+        kinds.append(np.full(n, 2))
+        weights.append(w)
+        owners.append(np.arange(n))
+        refs.append(f_idx * (1 << 32) + code)
+        counts_all.append(np.ones(n))
+    if bern:  # the absent words and constants: the rest of each item's naive Bayes scores
+        base = model.base_scores(batch)
+        rest = np.einsum("iq,iq->i", U, np.where(np.isfinite(base), base, 0.0)) - total
+        kinds.append(np.full(n, 3))
+        weights.append(rest)
+        owners.append(np.arange(n))
+        refs.append(np.zeros(n, dtype=np.int64))
+        counts_all.append(np.ones(n))
+    kinds.append(np.full(n, 4))
+    weights.append(layer.intercept[top] - layer.intercept[runner_up])
+    owners.append(np.arange(n))
+    refs.append(np.zeros(n, dtype=np.int64))
+    counts_all.append(np.ones(n))
+    return _pick(model, n, k, kinds, weights, owners, refs, counts_all)

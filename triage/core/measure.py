@@ -20,6 +20,7 @@ from triage.core.calibrate import (
     reliability_table,
     softmax_rows,
 )
+from triage.core.cutoffs import pooled_cutoffs
 from triage.core.metrics import Scorecard, precision_coverage_curve, scorecard, solve_cutoff
 from triage.core.model import ModelSpec
 from triage.core.routing import RoutingPolicy, Verdict, decide
@@ -92,7 +93,8 @@ def fit_policy(oof: np.ndarray, y: np.ndarray, queues: Sequence[str],
                rules: CutoffRules) -> tuple[RoutingPolicy, dict[str, Any], dict[str, dict[str, Any]]]:
     """From out-of-fold joint log-likelihoods: a temperature, then (with IsotonicCalibrator.MIN_ITEMS items or
     more) an isotonic map of the top queue's temperature-scaled probability, then per queue the lowest cutoff
-    on that final confidence whose Wilson lower bound of precision reaches the queue's target."""
+    on that final confidence whose Wilson lower bound of precision reaches the queue's target, or, where lower,
+    whose pooled (empirical-Bayes) bound does (core/cutoffs.py: a small queue borrows strength from the others)."""
     scaler = TemperatureScaler().fit(oof, y)
     cal = scaler.transform(oof)
     top = cal.argmax(axis=1)
@@ -113,6 +115,7 @@ def fit_policy(oof: np.ndarray, y: np.ndarray, queues: Sequence[str],
     never = rules.never_auto
     cutoffs: dict[str, float | None] = {}
     cutoff_info: dict[str, dict[str, Any]] = {}
+    pooled = pooled_cutoffs(conf, top, correct, queues, rules.targets, skip=set(never) | set(rules.pinned))
     for i, q in enumerate(queues):
         target = rules.targets[q]
         mine = top == i
@@ -125,7 +128,18 @@ def fit_policy(oof: np.ndarray, y: np.ndarray, queues: Sequence[str],
         cutoffs[q] = None if q in never else choice.cutoff
         cutoff_info[q] = {"cutoff": choice.cutoff, "target": choice.target, "precision": choice.precision,
                           "lower_bound": choice.lower_bound, "coverage": choice.coverage,
-                          "routed": choice.routed, "never_auto": q in never}
+                          "routed": choice.routed, "never_auto": q in never, "method": "own Wilson bound"}
+        pc = pooled.get(q)
+        if q not in never and pc is not None and pc.cutoff is not None and (choice.cutoff is None
+                                                                            or pc.cutoff < choice.cutoff):
+            # the pooled estimate (core/cutoffs.py) opens the queue lower than its own items alone can
+            cutoffs[q] = pc.cutoff
+            cutoff_info[q].update({"cutoff": pc.cutoff, "precision": pc.precision, "lower_bound": pc.lower_bound,
+                                   "coverage": pc.coverage, "routed": pc.routed,
+                                   "method": "pooled across queues (beta-binomial empirical Bayes)",
+                                   "prior_mean": pc.prior_mean, "prior_strength": pc.prior_strength})
+        elif cutoffs[q] is None and q not in never and pc is not None and pc.why:
+            cutoff_info[q]["why"] = pc.why
     policy = RoutingPolicy(cutoffs=cutoffs, never_auto=never, watch_probability=rules.watch_probability,
                            temperature=scaler.temperature, isotonic=iso)
     return policy, calibration, cutoff_info

@@ -15,7 +15,9 @@ with comp_ct = sum_over_queues n_.t + a - n_ct and S_c = sum_t comp_ct (Rennie e
 ComplementNB). The per-token weight behind a decision is scale[c] * (A[c, t] + B[c]) (Bernoulli: log p_ct).
 
 A plain base class (the model) owns posteriors, normalisation and the single-item path; the event model only
-decides how A, B, C and scale come from the counts.
+decides how A, B, C and scale come from the counts. When training sets a score layer (stack.py), the class
+scores every caller reads (`joint_log_likelihood`) are the layer's output over these; `base_scores` are the
+naive Bayes scores themselves.
 """
 
 from __future__ import annotations
@@ -31,6 +33,7 @@ from scipy.special import logsumexp
 from triage.core.counts import CountTables, _check_queue
 from triage.core.encode import EncodedBatch, EncodedItem, Encoder
 from triage.core.schema import Schema
+from triage.core.stack import ScoreLayer
 from triage.core.tokens import Tokenizer
 
 TEXT_MODELS = ("multinomial", "bernoulli", "complement", "complement-norm")
@@ -67,6 +70,8 @@ class ModelSpec:
     tf_log: bool = False
     idf: bool = False
     length_norm: bool = False
+    # fit the score layer (stack.py) at training; the counts and every formula above are the same either way
+    score_layer: bool = False
 
     def __post_init__(self) -> None:
         if self.text_model not in TEXT_MODELS:
@@ -98,6 +103,8 @@ class NaiveBayes:
         self.counts = counts
         self.spec = spec
         self.idf_: np.ndarray | None = None
+        # the score layer over the class scores (stack.py), fitted by training on out-of-fold scores; None: off
+        self.layer_: ScoreLayer | None = None
         if spec.idf:
             if idf is None:
                 raise ValueError("a model with idf needs the idf vector frozen at fit (NaiveBayes.fit builds it)")
@@ -251,7 +258,17 @@ class NaiveBayes:
                 x = x / norm
         return EncodedItem(item.token_ids, x, item.codes, item.unknown_tokens)
 
+    @property
+    def layer_active(self) -> bool:
+        """Whether the score layer reads this model's scores (a queue added by a correction switches it off)."""
+        return self.layer_ is not None and self.layer_.applies_to(self.queues)
+
     def joint_log_likelihood(self, batch: EncodedBatch) -> np.ndarray:
+        """(n, Q) class scores: the naive Bayes joint log-likelihoods, through the score layer when one is set."""
+        jll = self.base_scores(batch)
+        return self.layer_.transform(jll) if self.layer_active else jll  # type: ignore[union-attr]
+
+    def base_scores(self, batch: EncodedBatch) -> np.ndarray:
         """(n, Q) joint log-likelihoods, log P(c) + log P(x | c) up to a constant shared by all queues."""
         X = self._text_input(batch.X)
         lengths = np.asarray(X.sum(axis=1)).ravel()
@@ -263,6 +280,11 @@ class NaiveBayes:
         return _clean(jll)
 
     def joint_log_likelihood_one(self, item: EncodedItem) -> np.ndarray:
+        """(Q,) class scores of one item (through the score layer when one is set)."""
+        jll = self.base_scores_one(item)
+        return self.layer_.transform(jll[None, :])[0] if self.layer_active else jll  # type: ignore[union-attr]
+
+    def base_scores_one(self, item: EncodedItem) -> np.ndarray:
         """(Q,) joint log-likelihood of one item; reads columns of the tables, copies none of them."""
         counts = item.token_counts
         if self.spec.text_model == "bernoulli":
@@ -333,7 +355,9 @@ class NaiveBayes:
 
     def copy(self) -> NaiveBayes:
         enc = Encoder.from_manifest(self.encoder.schema, self.encoder.to_manifest())
-        return NaiveBayes(enc, self.counts.copy(), self.spec, self.idf_)
+        out = NaiveBayes(enc, self.counts.copy(), self.spec, self.idf_)
+        out.layer_ = self.layer_  # frozen: shared, never changed in place
+        return out
 
 
 def encoder_sizes(encoder: Encoder) -> list[int]:

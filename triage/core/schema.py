@@ -16,16 +16,27 @@ class FieldRole(StrEnum):
     LABEL = "label"
 
 
+# What a text field is cut into: its words (and bigrams when on), the character 3-5-grams inside each word
+# (for short, code-like text: package names, product codes, e-mail domains), or both. Every piece is a count.
+PIECES = ("words", "grams", "words+grams")
+
+
 @dataclass(frozen=True)
 class FieldSpec:
     """One predictor field. `weight` scales a text field's token counts; `bins` is for number fields;
-    `thousands` is a number field's thousands separator ("1,200"), read only when the file is imported."""
+    `pieces` (text fields) is one of PIECES; `thousands` is a number field's thousands separator ("1,200"), read
+    only when the file is imported."""
 
     name: str
     role: FieldRole
     weight: float = 1.0
     bins: int = 5
     thousands: str | None = None
+    pieces: str = "words"
+
+    def __post_init__(self) -> None:
+        if self.pieces not in PIECES:
+            raise ValueError(f"field {self.name!r}: pieces {self.pieces!r} is not one of {', '.join(PIECES)}")
 
 
 @dataclass(frozen=True)

@@ -8,6 +8,7 @@ unseen word would, so no label leaks.
 
 from __future__ import annotations
 
+import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
 
@@ -16,7 +17,9 @@ from sklearn.metrics import accuracy_score, f1_score
 from sklearn.model_selection import StratifiedKFold
 
 from triage.core.encode import EncodedBatch, Encoder
+from triage.core.measure import CutoffRules, fit_policy
 from triage.core.model import TEXT_MODELS, ModelSpec, NaiveBayes, log_posterior
+from triage.core.stack import ScoreLayer, too_small
 
 
 def subset(batch: EncodedBatch, rows: np.ndarray) -> EncodedBatch:
@@ -52,6 +55,58 @@ def out_of_fold_jll(encoder: Encoder, batch: EncodedBatch, labels: Sequence[str]
 
 
 @dataclass(frozen=True)
+class StackedScores:
+    """Out-of-fold scores for calibration and cutoffs, with the score layer behind them (None: layer off)."""
+
+    scores: np.ndarray  # (n, Q): each row from a model, and a layer, that never saw the item
+    queues: list[str]
+    layer: ScoreLayer | None
+    why_off: str | None = None
+    base: np.ndarray | None = None  # the naive Bayes out-of-fold scores the layer was fitted on
+
+
+def stacked_out_of_fold(encoder: Encoder, batch: EncodedBatch, labels: Sequence[str], spec: ModelSpec,
+                        folds: int = 5, seed: int = 0, layer_folds: int = 3) -> StackedScores:
+    """Naive Bayes out-of-fold scores and, with spec.score_layer and enough items, the score layer fitted on
+    them (stacked generalisation, Wolpert 1992: the layer only ever sees scores of items the model did not
+    count). The scores returned for calibration are out of fold twice over: each item's stacked score comes
+    from a layer fitted on the other `layer_folds` - 1 parts of the out-of-fold scores."""
+    oof, queues = out_of_fold_jll(encoder, batch, labels, spec, folds, seed)
+    return stack_scores(oof, queues, labels, spec, seed, layer_folds)
+
+
+def stack_scores(oof: np.ndarray, queues: list[str], labels: Sequence[str], spec: ModelSpec, seed: int = 0,
+                 layer_folds: int = 3) -> StackedScores:
+    """stacked_out_of_fold from naive Bayes out-of-fold scores already computed (by any engine)."""
+    if not spec.score_layer:
+        return StackedScores(oof, queues, None, "off in the settings", oof)
+    why = too_small(labels, len(queues))
+    if why is not None:
+        return StackedScores(oof, queues, None, why, oof)
+    qi = {q: i for i, q in enumerate(queues)}
+    y = np.array([qi[lab] for lab in labels])
+    layer = ScoreLayer.fit(oof, y, queues)
+    stacked = np.empty_like(oof)
+    k = int(max(2, min(layer_folds, np.bincount(y).min())))
+    for train, test in StratifiedKFold(n_splits=k, shuffle=True, random_state=seed + 1).split(oof, y):
+        if np.unique(y[train]).size < len(queues):  # a queue absent from this part: the full layer's scores
+            stacked[test] = layer.transform(oof[test])
+            continue
+        stacked[test] = ScoreLayer.fit(oof[train], y[train], queues).transform(oof[test])
+    return StackedScores(stacked, queues, layer, None, oof)
+
+
+def fit_layer(encoder: Encoder, batch: EncodedBatch, labels: Sequence[str], spec: ModelSpec,
+              folds: int = 5, seed: int = 0) -> ScoreLayer | None:
+    """The score layer for a model counted on all of `batch`: fitted on out-of-fold scores of the same items."""
+    if not spec.score_layer or too_small(labels, len(set(labels))) is not None:
+        return None
+    oof, queues = out_of_fold_jll(encoder, batch, labels, spec, folds, seed)
+    qi = {q: i for i, q in enumerate(queues)}
+    return ScoreLayer.fit(oof, np.array([qi[lab] for lab in labels]), queues)
+
+
+@dataclass(frozen=True)
 class SettingScore:
     """Cross-validated figures of one setting."""
 
@@ -59,10 +114,28 @@ class SettingScore:
     accuracy: float
     macro_f1: float
     log_loss: float
+    coverage: float = 0.0  # out-of-fold share auto-routed at the targets, cutoffs fitted as training fits them
 
     def to_dict(self) -> dict[str, object]:
         return {"spec": self.spec.to_dict(), "accuracy": self.accuracy, "macro_f1": self.macro_f1,
-                "log_loss": self.log_loss}
+                "log_loss": self.log_loss, "coverage": self.coverage}
+
+
+def rank_key(coverage: float, macro_f1: float, log_loss: float) -> tuple[float, float, float]:
+    """The one criterion `train` and `tune` rank settings by (higher is better): the share auto-routed at the
+    targets with the promise kept (the cutoffs are fitted so that it is), then macro-F1, then lower log loss.
+    Rounded so that a difference below a millionth is a tie, not noise deciding."""
+    return (round(coverage, 6), round(macro_f1, 6), -round(log_loss, 9))
+
+
+def coverage_at_targets(jll: np.ndarray, queues: Sequence[str], labels: Sequence[str],
+                        rules: CutoffRules) -> float:
+    """The share of out-of-fold items auto-routed at the targets, calibrated and cut exactly as training does
+    (measure.fit_policy: temperature, isotonic map with enough items, own and pooled cutoff bounds)."""
+    qi = {q: i for i, q in enumerate(queues)}
+    y = np.array([qi[lab] for lab in labels])
+    _policy, _calibration, cutoffs = fit_policy(jll, y, queues, rules)
+    return sum(c.get("routed", 0) for q, c in cutoffs.items() if q not in rules.never_auto) / max(len(y), 1)
 
 
 def score_jll(jll: np.ndarray, queues: list[str], labels: Sequence[str]) -> tuple[float, float, float]:
@@ -76,26 +149,38 @@ def score_jll(jll: np.ndarray, queues: list[str], labels: Sequence[str]) -> tupl
 
 
 def quick_grid(base: ModelSpec) -> list[ModelSpec]:
-    """The settings `train` tries when the config leaves the model on 'auto'."""
-    return [replace(base, text_model=m, alpha_text=a) for m in TEXT_MODELS for a in (0.1, 0.5, 1.0)]
+    """The settings `train` tries when the config leaves the model on 'auto': every text model at three
+    smoothings, and multinomial and complement with the token-count transforms (as `tune` tries them)."""
+    plain = [replace(base, text_model=m, alpha_text=a) for m in TEXT_MODELS for a in (0.1, 0.5, 1.0)]
+    transformed = [replace(base, text_model=m, alpha_text=a, tf_log=True, idf=True, length_norm=True)
+                   for m in ("multinomial", "complement") for a in (0.1, 0.5, 1.0)]
+    return plain + [s for s in transformed if s not in plain]
 
 
 def select(encoder: Encoder, batch: EncodedBatch, labels: Sequence[str], specs: Sequence[ModelSpec],
            folds: int = 3, seed: int = 0,
-           before_each: Callable[[int, ModelSpec], None] | None = None) -> tuple[SettingScore, list[SettingScore]]:
-    """Score every setting by cross-validation; the best by macro-F1 (ties: lower log loss).
+           before_each: Callable[[int, ModelSpec], None] | None = None, rules: CutoffRules | None = None,
+           budget_seconds: float | None = None) -> tuple[SettingScore, list[SettingScore]]:
+    """Score every setting by cross-validation; the best by `rank_key` (coverage at the targets under `rules`,
+    then macro-F1, then log loss; without rules coverage is not measured and ties at 0).
 
-    `before_each(i, spec)` runs before each setting: for progress, and a place to raise to cancel."""
+    `before_each(i, spec)` runs before each setting: for progress, and a place to raise to cancel. With a
+    `budget_seconds`, settings after the budget is spent are skipped (the first is always scored)."""
     scores = []
+    start = time.perf_counter()
     for i, spec in enumerate(specs):
+        if budget_seconds is not None and i > 0 and time.perf_counter() - start > budget_seconds:
+            break
         if before_each is not None:
             before_each(i, spec)
         jll, queues = out_of_fold_jll(encoder, batch, labels, spec, folds, seed)
         acc, f1, ll = score_jll(jll, queues, labels)
-        scores.append(SettingScore(spec, acc, f1, ll))
+        cov = coverage_at_targets(jll, queues, labels, rules) if rules is not None else 0.0
+        scores.append(SettingScore(spec, acc, f1, ll, cov))
     return best_setting(scores), scores
 
 
 def best_setting(scores: Sequence[SettingScore]) -> SettingScore:
-    """The best setting by macro-F1 (ties: lower log loss): the one rule every grid uses."""
-    return max(scores, key=lambda s: (round(s.macro_f1, 6), -s.log_loss))
+    """The best setting by `rank_key` (coverage at the targets, then macro-F1, then log loss): the one rule
+    every grid uses (coverage ties at 0 where it was not measured)."""
+    return max(scores, key=lambda s: rank_key(s.coverage, s.macro_f1, s.log_loss))

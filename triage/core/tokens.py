@@ -49,6 +49,9 @@ _ASCII_PLAIN = re.compile(r"[0-9]+(?:[.,][0-9]+)+|[a-z0-9]+(?:[\-/][a-z0-9]+)*")
 _NUMERIC = regex.compile(r"[\d.,]+")
 _JOINER = re.compile(r"[\-/]")
 _LONG_ID_DIGITS = 6  # a run of this many digits reads as an account/order number, not a quantity
+GRAM_MARK = "~"  # a character gram's term starts so: no word does, so a gram never shares a word's count
+GRAM_SIZES = (3, 5)
+_SPACES = re.compile(r"\s\s+")
 
 
 @dataclass(frozen=True)
@@ -93,6 +96,45 @@ class Tokenizer:
         if self.bigrams and len(words) > 1:
             return words + [f"{a} {b}" for a, b in zip(words, words[1:], strict=False)]
         return words
+
+    def pieces(self, text: str | None, kind: str = "words") -> list[str]:
+        """What a text field of `kind` (schema.PIECES) is counted as: tokens, grams, or tokens then grams."""
+        if kind == "words":
+            return self.tokens(text)
+        if kind == "grams":
+            return grams(text)
+        return self.tokens(text) + grams(text)
+
+
+def grams(text: str | None, lo: int = GRAM_SIZES[0], hi: int = GRAM_SIZES[1]) -> list[str]:
+    """Character lo..hi-grams inside word boundaries, each marked with GRAM_MARK.
+
+    The same grams as scikit-learn's `CountVectorizer(analyzer="char_wb")` on lower-cased text (its
+    `_char_wb_ngrams`: runs of white space become one space, each white-space-separated word is padded with one
+    space on each side, and a word shorter than a size gives its padded self once and no longer grams);
+    tests/test_tokens.py checks it against that analyzer. Hand-written rather than calling scikit-learn per
+    item because a correction tokenises one item, where a vectorizer object costs more than the work; and the
+    text is NFKC-casefolded first like the words (plain lower-casing on ASCII text, as scikit-learn does)."""
+    if not text or not isinstance(text, str):
+        return []
+    text = text.lower() if text.isascii() else unicodedata.normalize("NFKC", text).casefold()
+    out: list[str] = []
+    append = out.append
+    for word in _SPACES.sub(" ", text).split():
+        w = f" {word} "
+        size = len(w)
+        for n in range(lo, hi + 1):
+            if n >= size:
+                append(GRAM_MARK + w)
+                break
+            for start in range(size - n + 1):
+                append(GRAM_MARK + w[start:start + n])
+    return out
+
+
+def is_bigram(term: str) -> bool:
+    """A word pair ("not working"), as opposed to a word or a character gram (which may hold spaces)."""
+    return " " in term and not term.startswith(GRAM_MARK)
 
 
 def _classify(tok: str, cap: int) -> list[str]:

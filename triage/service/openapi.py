@@ -163,7 +163,7 @@ OPENAPI: dict[str, Any] = {
                     "feature": {"type": "string"},
                     "weight": {"type": "number",
                                "description": "Log-likelihood-ratio for the suggested queue over the runner-up"},
-                    "kind": {"type": "string", "enum": ["prior", "token", "field", "absent"],
+                    "kind": {"type": "string", "enum": ["prior", "token", "field", "absent", "layer"],
                              "description": "prior, token, field or absent (a word the item lacks; Bernoulli)"},
                 },
             },

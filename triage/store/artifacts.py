@@ -32,6 +32,7 @@ from triage.core.counts import CountError, CountTables
 from triage.core.encode import Encoder
 from triage.core.model import ModelSpec, NaiveBayes, encoder_sizes
 from triage.core.schema import FieldRole, FieldSpec, Schema
+from triage.core.stack import ScoreLayer
 
 FORMAT = "triage-model"
 FORMAT_VERSION = 2
@@ -53,12 +54,14 @@ class ArtifactSpaceError(ArtifactError):
 def schema_to_dict(schema: Schema) -> dict[str, Any]:
     return {
         "id": schema.id, "label": schema.label, "time": schema.time,
-        "fields": [{"name": f.name, "role": f.role.value, "weight": f.weight, "bins": f.bins} for f in schema.fields],
+        "fields": [{"name": f.name, "role": f.role.value, "weight": f.weight, "bins": f.bins,
+                    "pieces": f.pieces} for f in schema.fields],
     }
 
 
 def schema_from_dict(d: dict[str, Any]) -> Schema:
-    fields = tuple(FieldSpec(f["name"], FieldRole(f["role"]), float(f["weight"]), int(f["bins"])) for f in d["fields"])
+    fields = tuple(FieldSpec(f["name"], FieldRole(f["role"]), float(f["weight"]), int(f["bins"]),
+                             pieces=f.get("pieces", "words")) for f in d["fields"])
     return Schema(fields=fields, id=d["id"], label=d["label"], time=d.get("time"))
 
 
@@ -129,6 +132,8 @@ def _write_files(model: NaiveBayes, tmp: Path, fingerprint: str, extra: dict[str
         arrays = model.counts.arrays()
         if model.idf_ is not None:
             arrays = {**arrays, "idf": model.idf_}
+        if model.layer_ is not None:
+            arrays = {**arrays, **model.layer_.to_arrays()}
         np.savez(fh, **arrays)
         fh.flush()
         os.fsync(fh.fileno())
@@ -139,6 +144,7 @@ def _write_files(model: NaiveBayes, tmp: Path, fingerprint: str, extra: dict[str
         "spec": model.spec.to_dict(),
         "encoder": model.encoder.to_manifest(),
         "queues": model.queues,
+        "layer": model.layer_.to_manifest() if model.layer_ is not None else None,
         "fingerprint": fingerprint,
         "extra": extra or {},
     }
@@ -219,7 +225,9 @@ def load_model(path: Path) -> tuple[NaiveBayes, dict[str, Any]]:
         raise ArtifactError(f"{path}: model is unreadable ({type(exc).__name__}: {exc})") from None
     try:
         model = NaiveBayes(encoder, counts, spec, idf)
-    except ValueError as exc:
+        if manifest.get("layer"):
+            model.layer_ = ScoreLayer.from_parts(manifest["layer"], arrays)
+    except (KeyError, ValueError) as exc:
         raise ArtifactError(f"{path}: model is unreadable ({exc})") from None
     return model, manifest
 
