@@ -150,11 +150,9 @@ def score_jll(jll: np.ndarray, queues: list[str], labels: Sequence[str]) -> tupl
 
 def quick_grid(base: ModelSpec) -> list[ModelSpec]:
     """The settings `train` tries when the config leaves the model on 'auto': every text model at three
-    smoothings, and multinomial and complement with the token-count transforms (as `tune` tries them)."""
-    plain = [replace(base, text_model=m, alpha_text=a) for m in TEXT_MODELS for a in (0.1, 0.5, 1.0)]
-    transformed = [replace(base, text_model=m, alpha_text=a, tf_log=True, idf=True, length_norm=True)
-                   for m in ("multinomial", "complement") for a in (0.1, 0.5, 1.0)]
-    return plain + [s for s in transformed if s not in plain]
+    smoothings (the token-count transforms stay with `tune`: counted on a cluster their idf sums differ from
+    one process in the last bits, which the engine's exactness check does not allow yet)."""
+    return [replace(base, text_model=m, alpha_text=a) for m in TEXT_MODELS for a in (0.1, 0.5, 1.0)]
 
 
 def select(encoder: Encoder, batch: EncodedBatch, labels: Sequence[str], specs: Sequence[ModelSpec],
