@@ -100,3 +100,21 @@ def test_a_small_perfect_queue_borrows_from_good_neighbours() -> None:
     assert pooled_cutoffs(conf, top, good, "abc", targets)["a"].cutoff == 0.99
     poor = np.concatenate([np.ones(40, bool), rng.random(4000) < 0.8])
     assert pooled_cutoffs(conf, top, poor, "abc", targets)["a"].cutoff is None
+
+
+def test_a_small_queue_below_its_target_is_never_opened_by_a_strong_prior() -> None:
+    """23 right out of 25 (92%) beside three queues at 99.5%: with the prior at its full strength the posterior's
+    2.5% quantile (scipy.stats.beta.ppf) is about 0.948 and would pass a 93% target, but the queue's own
+    precision (0.92) does not keep the promise, so it must get no cutoff. Binomial arithmetic, no outside value."""
+    rng = np.random.default_rng(7)
+    conf, top, correct = [], [], []
+    for q, (n, right) in enumerate([(2000, 1990), (2000, 1990), (2000, 1990), (25, 23)]):
+        conf += [0.97] * n if q == 3 else list(rng.uniform(0.95, 1.0, n))  # one cutoff for the small queue
+        top += [q] * n
+        ok = np.zeros(n, dtype=bool)
+        ok[rng.choice(n, right, replace=False)] = True
+        correct += list(ok)
+    queues = ["a", "b", "c", "small"]
+    got = pooled_cutoffs(np.array(conf), np.array(top), np.array(correct), queues, dict.fromkeys(queues, 0.93))
+    assert got["small"].cutoff is None and got["small"].why
+    assert got["a"].cutoff is not None  # the large queues still route

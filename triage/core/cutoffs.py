@@ -15,8 +15,8 @@ says a lot about this one. At each candidate cutoff c:
      bound, as the Wilson rule) must reach the target.
 
 A small queue thus leans on the pooled precision; a large queue's own counts outweigh the prior. The queue's
-own promise is still checked where its own data allows: with at least OWN_CHECK routed items its own precision
-at the cutoff must reach the target too, and from OWN_ONLY routed items on the pooled estimate is not used at
+own promise is always checked as well: its own out-of-fold precision at the cutoff must reach the target too
+(the prior may lift the bound of a queue that is right on all it routes, never open one that is not), and from OWN_ONLY routed items on the pooled estimate is not used at
 all (the queue's own Wilson bound decides, as without pooling: measure.fit_policy takes the lower cutoff). A queue where no cutoff passes says why and what would help.
 """
 
@@ -30,7 +30,6 @@ from scipy.stats import beta as beta_dist
 
 S_MIN, S_MAX = 2.0, 100.0  # prior strength in pseudo-items: the other queues never count for more than 100 of
 # this queue's own items, so a large queue is judged mostly on its own (common practice, no source)
-OWN_CHECK = 30  # routed items from which a queue's own precision must meet the target as well
 OWN_ONLY = 200  # routed items from which the queue's own Wilson bound alone decides (its data suffices)
 LEVEL = 0.025  # the posterior quantile compared with the target (one-sided 97.5%, as the Wilson bound used)
 POOL_MIN_QUEUES = 3  # fewer queues than this say too little about the spread: no pooling
@@ -99,7 +98,7 @@ def pooled_cutoffs(conf: np.ndarray, top: np.ndarray, correct: np.ndarray, queue
         own = np.where(n[:, j] > 0, k[:, j] / np.maximum(n[:, j], 1), 0.0)
         # only cutoffs this queue's own items take (a new item routes at its own confidence), below OWN_ONLY
         cand = np.concatenate(([True], n[1:, j] != n[:-1, j])) & (n[:, j] > 0) & (n[:, j] < OWN_ONLY)
-        cand &= (n[:, j] < OWN_CHECK) | (own >= target)
+        cand &= own >= target  # the queue's own precision keeps the promise at every cutoff it opens
         lower = np.full(grid.size, -np.inf)
         lower[cand] = beta_dist.ppf(LEVEL, k[cand, j] + a0[cand], n[cand, j] - k[cand, j] + b0[cand])
         ok = cand & (lower >= target)
