@@ -468,3 +468,16 @@ def test_raw_sample_reads_only_the_head(tmp_path: Path) -> None:
     cols, rows = read_raw_sample(p, 10)
     assert cols == list(ROWS[0])
     assert [r["ticket_id"] for r in rows] == [f"T{i}" for i in range(10)]
+
+
+def test_a_quoted_multi_line_text_with_commas_stays_one_item(tmp_path: Path) -> None:
+    """RFC 4180 section 2, rules 6 and 7: a field in double quotes may hold line breaks and commas. A ticket body
+    whose second line has as many commas as the file has columns is still one cell, not a swallowed row."""
+    from triage.ingest import read_raw_sample
+
+    path = tmp_path / "multi.csv"
+    path.write_text('id,queue,body\n1,billing,"Hello,\nI paid twice, see below, thanks"\n2,safety,smoke\n',
+                    encoding="utf-8")
+    _columns, rows = read_raw_sample(path, 10)
+    assert [r["id"] for r in rows] == ["1", "2"]
+    assert rows[0]["body"] == "Hello,\nI paid twice, see below, thanks" and rows[0]["queue"] == "billing"

@@ -643,12 +643,22 @@ class _Lines:
 
     def swallowed(self, sep: str, width: int) -> bool:
         """True when a later line of this multi-line record has a full row's worth of delimiters and a first
-        cell: a quoted text with a line break rarely holds that many, a row swallowed by a stray quote does."""
+        cell shaped like the record's own first cell (an id: "VW-1042" and "VW-1043" share the shape "A-9"): a
+        quoted text with a line break rarely starts so ("Hello,\nI paid twice, see below, thanks" does not), a
+        row swallowed by a stray quote does."""
+        own = _cell_shape(self.taken[0][1].split(sep, 1)[0])
         for _n, text in self.taken[1:]:
             body = text.rstrip("\r\n")
-            if body.count(sep) >= width - 1 and body.split(sep, 1)[0].strip():
+            first = body.split(sep, 1)[0]
+            if body.count(sep) >= width - 1 and first.strip() and _cell_shape(first) == own:
                 return True
         return False
+
+
+def _cell_shape(cell: str) -> str:
+    """The shape of a cell: runs of digits -> 9, runs of letters -> A, quotes and outer spaces dropped."""
+    text = cell.strip().strip('"').strip()
+    return re.sub(r"[^\W\d_]+", "A", re.sub(r"\d+", "9", text))
 
 
 def _refuse_duplicate_columns(source: str, columns: list[str]) -> None:
