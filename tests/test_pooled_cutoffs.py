@@ -12,6 +12,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 from sklearn.model_selection import train_test_split
+from statsmodels.stats.proportion import proportion_confint
 
 from triage.core.cutoffs import pooled_cutoffs
 from triage.core.encode import Encoder
@@ -90,7 +91,9 @@ def test_a_small_perfect_queue_borrows_from_good_neighbours() -> None:
     large queues that are right 99% of the time at the same confidence it can; a poor neighbourhood does not
     lend it anything."""
     lo, _ = wilson_interval(40, 40)
-    assert lo == pytest.approx(0.9124, abs=1e-3)  # the Wilson score interval for 40/40 (from memory: 0.912)
+    # statsmodels' Wilson score interval (proportion_confint, method="wilson") is the reference
+    ref_lo, _ = proportion_confint(40, 40, alpha=0.05, method="wilson")
+    assert lo == pytest.approx(ref_lo, abs=1e-9) and lo < 0.95
     rng = np.random.default_rng(0)
     conf = np.concatenate([np.full(40, 0.99), np.full(2000, 0.99), np.full(2000, 0.99)])
     top = np.concatenate([np.zeros(40), np.ones(2000), np.full(2000, 2)]).astype(int)

@@ -10,7 +10,7 @@ import numpy as np
 
 from triage.app.active import lost_versions, require_model
 from triage.app.errors import UnknownItem
-from triage.app.routing import verdicts_for, watch_word_hits
+from triage.app.routing import layer_waits, verdicts_for, watch_word_hits
 from triage.core.evidence import explain as explain_item
 from triage.core.routing import HeldBy, decide
 
@@ -164,7 +164,9 @@ def explain(ws: Workspace, item_id: str, n: int = 10) -> dict[str, Any]:
         enc = replace(batch.row(0), unknown_tokens=(batch.unknown or ((),))[0])
         jll = active.model.joint_log_likelihood_one(enc)
         probs = active.policy.calibrated(jll)
-        verdict = decide(probs, active.model.queues, active.policy, watch_word_hits(ws, [rec]))[0]
+        watch = active.model.watch_probabilities(batch)
+        verdict = layer_waits(decide(probs, active.model.queues, active.policy, watch_word_hits(ws, [rec]),
+                                     watch), active.model)[0]
         ev = explain_item(active.model, enc, verdict.top_index, verdict.runner_up_index)
         version = active.version.version
     return {

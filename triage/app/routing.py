@@ -35,6 +35,7 @@ MIN_QUEUE_ITEMS = 5
 HELD_YOUNG = "a new queue is the runner-up until it has"
 # a population stability index above 0.25 is read as a major shift (common practice in credit scoring, no source)
 PSI_FLAG = 0.25
+HELD_LAYER = "held: a queue added by a correction"
 
 
 def _decision(active: ActiveModel, rec: ItemRecord, verdict: Verdict, terms: Sequence[Any],
@@ -68,8 +69,9 @@ def verdicts_for(ws: Workspace, records: Sequence[ItemRecord]) -> list[Verdict]:
         model = active.model
         batch = model.encoder.transform([r.fields for r in records], allow_missing=True)
         probs = active.policy.calibrated(model.joint_log_likelihood(batch))
-        verdicts = decide(probs, model.queues, active.policy, watch_word_hits(ws, records))
-        return _young_second(verdicts, model.counts.class_count_, active.policy.never_auto)
+        verdicts = decide(probs, model.queues, active.policy, watch_word_hits(ws, records),
+                          model.watch_probabilities(batch))
+        return layer_waits(_young_second(verdicts, model.counts.class_count_, active.policy.never_auto), model)
 
 
 def decide_with_batch(ws: Workspace,
@@ -88,8 +90,8 @@ def decide_batch(active: ActiveModel, records: Sequence[ItemRecord],
     model = active.model
     batch = model.encoder.transform([r.fields for r in records], allow_missing=True, keep_unknown=True)
     probs = active.policy.calibrated(model.joint_log_likelihood(batch))
-    verdicts = decide(probs, model.queues, active.policy, hits)
-    verdicts = _young_second(verdicts, model.counts.class_count_, active.policy.never_auto)
+    verdicts = decide(probs, model.queues, active.policy, hits, model.watch_probabilities(batch))
+    verdicts = layer_waits(_young_second(verdicts, model.counts.class_count_, active.policy.never_auto), model)
     top = np.array([v.top_index for v in verdicts])
     runner = np.array([v.runner_up_index for v in verdicts])
     evidence = strongest_batch(model, batch, top, runner, EVIDENCE_TERMS) if len(model.queues) > 1 \
@@ -120,6 +122,19 @@ def _young_second(verdicts: list[Verdict], items: np.ndarray, never_auto: frozen
                             reason=f"{HELD_YOUNG} {MIN_QUEUE_ITEMS} items ({v.suggested}: {int(items[v.top_index])})")))
         out.append(v)
     return out
+
+
+def layer_waits(verdicts: list[Verdict], model: Any) -> list[Verdict]:
+    """Hold what would be auto-routed while a correction's new queue keeps the score layer off: the calibration
+    and cutoffs were fitted on the layer's scores, and the model's own scores are not what they measured.
+    Safety holds keep their reason; `train` fits the layer over every queue and routing resumes."""
+    if not model.layer_waits:
+        return verdicts
+    new = ", ".join(q for q in model.queues if q not in model.layer_.queues)
+    reason = (f"{HELD_LAYER} ({new}) until `triage train` refits the score layer: the cutoffs were fitted "
+              "through it")
+    return [replace(v, queue=None, held_by=HeldBy.NEW_QUEUE, watch=(), reason=reason) if v.held_by is None else v
+            for v in verdicts]
 
 
 def decisions_for(ws: Workspace, records: Sequence[ItemRecord]) -> list[RoutingDecision]:

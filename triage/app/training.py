@@ -128,8 +128,12 @@ def layer_info(stacked: StackedScores) -> dict[str, Any]:
     """What the scorecard says about the score layer: used (with its size) or off, and why."""
     if stacked.layer is None:
         return {"used": False, "why": stacked.why_off}
-    return {"used": True, "items": stacked.layer.n_items, "queues": len(stacked.layer.queues),
-            "C": stacked.layer.C, "fitted_on": "out-of-fold scores"}
+    info: dict[str, Any] = {"used": True, "items": stacked.layer.n_items, "queues": len(stacked.layer.queues),
+                            "C": stacked.layer.C, "fitted_on": "out-of-fold scores",
+                            "converged": stacked.layer.converged}
+    if (note := stacked.layer.note()) is not None:
+        info["note"] = note
+    return info
 
 
 def labelled(ws: Workspace) -> list[ItemRecord]:
@@ -234,15 +238,21 @@ def measure(ws: Workspace, spec: ModelSpec, recs: Sequence[ItemRecord] | None = 
     say("scoring the newest items", 0.7)
     if history is not None:
         model = history.model(spec, "older")
+        test_base = history.joint_log_likelihood(model, "newer")  # no layer yet: the model's own scores
         model.layer_ = stacked.layer
-        test_jll = history.joint_log_likelihood(model, "newer")
+        test_jll = stacked.layer.transform(test_base) if model.layer_active else test_base
+        test_base = test_base if model.layer_active else None
     else:
         model = fit_rows(enc, batch, labels, np.arange(len(labels)), spec, queues)
         model.layer_ = stacked.layer
-        test_jll = model.joint_log_likelihood(enc.transform([r.fields for r in newer], allow_missing=True))
+        newer_batch = enc.transform([r.fields for r in newer], allow_missing=True)
+        test_jll = model.joint_log_likelihood(newer_batch)
+        test_base = model.base_scores(newer_batch) if model.layer_active else None
     probs = policy.calibrated(test_jll)
+    # the safety rule reads the model's own posteriors too when the layer is on (routing.decide, watch_probs)
+    watch_probs = softmax_rows(test_base) if test_base is not None else None
     hits = watch_word_hits(ws, newer)
-    verdicts = decide(probs, model.queues, policy, hits)
+    verdicts = decide(probs, model.queues, policy, hits, watch_probs)
     # the same figures on the newest items, which calibration never saw (an isotonic map is judged here)
     calibration["holdout"] = reliability_figures(
         softmax_rows(test_jll), probs, np.array([v.confidence for v in verdicts]),
@@ -254,6 +264,7 @@ def measure(ws: Workspace, spec: ModelSpec, recs: Sequence[ItemRecord] | None = 
     meas = Measurement(spec, policy, card, calibration, cutoff_info, split, [r.item_id for r in newer],
                        [r.label or "" for r in newer], probs, list(model.queues), hits)
     meas.test_jll = test_jll
+    meas.test_watch_probs = watch_probs
     return meas
 
 
@@ -430,6 +441,8 @@ def _fit(ws: Workspace, engine: Engine, recs: list[ItemRecord], say: Progress,
             queues_all = history.queues("all")
             qi_all = {q: i for i, q in enumerate(queues_all)}
             model.layer_ = ScoreLayer.fit(oof_all, np.array([qi_all[lab] for lab in labels]), queues_all)
+            if (note := model.layer_.note()) is not None:  # the layer the model keeps: train and info say so
+                measurement.calibration["score_layer"].update(converged=False, note=note)
     finally:
         history.close()
     check()

@@ -171,6 +171,8 @@ class Measurement:
     test_folds: np.ndarray | None = None
     fold_policies: list[RoutingPolicy] = field(default_factory=list)
     test_jll: np.ndarray | None = None  # time split: the test rows' joint log-likelihoods, before calibration
+    # time split with the score layer on: the model's own posteriors, read by the watch-probability rule
+    test_watch_probs: np.ndarray | None = None
     # when routing uses cutoffs other than the solved ones (set by hand): those, and the scorecard at them
     active_cutoffs: dict[str, float | None] | None = None
     at_active: Scorecard | None = None
@@ -186,7 +188,8 @@ class Measurement:
             return p if cutoffs is None else replace(p, cutoffs=cutoffs)
 
         if self.test_folds is None:
-            return decide(self.test_probs, self.model_queues, pol(self.policy), self.test_hits)
+            return decide(self.test_probs, self.model_queues, pol(self.policy), self.test_hits,
+                          self.test_watch_probs)
         out: list[Verdict | None] = [None] * len(self.test_labels)
         for f, p in enumerate(self.fold_policies):
             rows = np.flatnonzero(self.test_folds == f)
@@ -224,7 +227,8 @@ class Measurement:
         """The scorecard of a time-split measurement's test rows decided by another policy (its calibration
         and its cutoffs), as routing under that policy would decide them."""
         assert self.test_jll is not None
-        verdicts = decide(policy.calibrated(self.test_jll), self.model_queues, policy, self.test_hits)
+        verdicts = decide(policy.calibrated(self.test_jll), self.model_queues, policy, self.test_hits,
+                          self.test_watch_probs)
         return scorecard(self.test_labels, [v.suggested for v in verdicts], scored_confidence(verdicts),
                          self.scorecard.queues, policy.cutoffs, never_auto=policy.never_auto,
                          targets={q.queue: q.target for q in self.scorecard.per_queue})

@@ -263,6 +263,19 @@ class NaiveBayes:
         """Whether the score layer reads this model's scores (a queue added by a correction switches it off)."""
         return self.layer_ is not None and self.layer_.applies_to(self.queues)
 
+    @property
+    def layer_waits(self) -> bool:
+        """A layer is set but a queue added by a correction switched it off: the policy's calibration and cutoffs
+        were fitted through it, so they do not describe these scores until the next `train`."""
+        return self.layer_ is not None and not self.layer_active
+
+    def watch_probabilities(self, batch: EncodedBatch) -> np.ndarray | None:
+        """The naive Bayes posteriors (no layer) when the layer is on, else None: the never-auto watch rule reads
+        the larger of these and the layer's, so the layer can never talk a safety queue's chance down."""
+        if not self.layer_active:
+            return None
+        return np.exp(log_posterior(self.base_scores(batch)))
+
     def joint_log_likelihood(self, batch: EncodedBatch) -> np.ndarray:
         """(n, Q) class scores: the naive Bayes joint log-likelihoods, through the score layer when one is set."""
         jll = self.base_scores(batch)

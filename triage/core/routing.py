@@ -134,21 +134,25 @@ def _entry_parts(entry: str) -> tuple[str, ...]:
 
 
 def decide(probs: np.ndarray, queues: list[str], policy: RoutingPolicy,
-           hits: Sequence[Sequence[str]] | None = None) -> list[Verdict]:
+           hits: Sequence[Sequence[str]] | None = None, watch_probs: np.ndarray | None = None) -> list[Verdict]:
     """One verdict per row of temperature-scaled probabilities; `hits` are each item's watch-word hits (see
-    watch_hits). The top queue's confidence is the policy's `top_confidence` (isotonic when fitted)."""
+    watch_hits). The top queue's confidence is the policy's `top_confidence` (isotonic when fitted).
+    `watch_probs` (the model's scores before its score layer, `NaiveBayes.watch_probabilities`) are read by the
+    watch-probability rule only: a never-auto queue's chance is the larger of the two, so a layer that lowers it
+    never lets such an item through."""
     probs = np.atleast_2d(probs)
+    watch_p = probs if watch_probs is None else np.maximum(probs, np.atleast_2d(watch_probs))
     order = np.argsort(-probs, axis=1, kind="stable")
     tops = policy.top_confidence(probs[np.arange(probs.shape[0]), order[:, 0]]) if probs.shape[0] else []
     watch_idx = [i for i, q in enumerate(queues) if q in policy.never_auto]
     out: list[Verdict] = []
-    for n, (row, p) in enumerate(zip(order, probs, strict=True)):
+    for n, (row, p, pw) in enumerate(zip(order, probs, watch_p, strict=True)):
         words = hits[n] if hits is not None else ()
         a = int(row[0])
         b = int(row[1]) if len(row) > 1 else a
         top, conf = queues[a], float(tops[n])
         cut = policy.cutoff(top)
-        watched = [queues[i] for i in watch_idx if i != a and p[i] >= policy.watch_probability]
+        watched = [queues[i] for i in watch_idx if i != a and pw[i] >= policy.watch_probability]
         watch: tuple[str, ...] = ()
         held_by: HeldBy | None
         if top in policy.never_auto:

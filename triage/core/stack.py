@@ -65,6 +65,9 @@ class ScoreLayer:
     scale: float
     n_items: int = 0
     C: float = DEFAULT_C
+    # False when the solver stopped at max_iter before its tolerance: the layer is still used (its weights are a
+    # valid, if less sharp, combination of the scores), and train and the model's info say so
+    converged: bool = True
 
     @classmethod
     def fit(cls, scores: np.ndarray, y: np.ndarray, queues: Sequence[str], *, C: float = DEFAULT_C,
@@ -82,16 +85,22 @@ class ScoreLayer:
             raise ValueError(f"the score layer needs scores and items of all {K} queues")
         # tol 1e-3: on 16k items of 54 queues the fit takes seconds instead of most of a minute, and routes the
         # same test items to the same queues within 0.1% (bench/quality.py measures the layer's effect)
+        from sklearn.exceptions import ConvergenceWarning
+
         lr = LogisticRegression(C=C, max_iter=max_iter, tol=1e-3)
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")  # lbfgs may stop at max_iter; the fit is still a usable layer
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", ConvergenceWarning)  # recorded and reported, never dropped
             lr.fit(centred / scale, y)
+        converged = not any(issubclass(w.category, ConvergenceWarning) for w in caught)
+        for w in caught:  # anything else is not ours to hide
+            if not issubclass(w.category, ConvergenceWarning):
+                warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
         W = np.asarray(lr.coef_, dtype=np.float64)
         b = np.asarray(lr.intercept_, dtype=np.float64)
         if K == 2:  # scikit-learn keeps one row for two classes: f_1 - f_0 = w z + b; split it symmetrically
             W = np.vstack([-W[0] / 2, W[0] / 2])
             b = np.array([-b[0] / 2, b[0] / 2])
-        return cls(tuple(queues), W, b, scale, int(len(y)), float(C))
+        return cls(tuple(queues), W, b, scale, int(len(y)), float(C), converged)
 
     def applies_to(self, queues: Sequence[str]) -> bool:
         """Whether the layer reads these queues (a queue added by a correction switches it off until `train`)."""
@@ -115,7 +124,8 @@ class ScoreLayer:
         return {"layer_weights": self.weights, "layer_intercept": self.intercept}
 
     def to_manifest(self) -> dict[str, Any]:
-        return {"queues": list(self.queues), "scale": self.scale, "n_items": self.n_items, "C": self.C}
+        return {"queues": list(self.queues), "scale": self.scale, "n_items": self.n_items, "C": self.C,
+                "converged": self.converged}
 
     @classmethod
     def from_parts(cls, manifest: Mapping[str, Any], arrays: Mapping[str, np.ndarray]) -> ScoreLayer:
@@ -125,4 +135,11 @@ class ScoreLayer:
         if W.shape != (K, K) or b.shape != (K,) or not (np.isfinite(W).all() and np.isfinite(b).all()):
             raise ValueError(f"score layer arrays must be ({K}, {K}) and ({K},) finite numbers")
         return cls(tuple(manifest["queues"]), W, b, float(manifest["scale"]), int(manifest.get("n_items", 0)),
-                   float(manifest.get("C", DEFAULT_C)))
+                   float(manifest.get("C", DEFAULT_C)), bool(manifest.get("converged", True)))
+
+    def note(self) -> str | None:
+        """What a user should know about this fit, or None: a layer whose solver stopped early says so."""
+        if self.converged:
+            return None
+        return (f"the score layer's solver stopped at its iteration limit before converging (C {self.C:g}, "
+                f"{self.n_items} items); it is used as fitted: a larger C or more history may help")
