@@ -265,6 +265,7 @@ def measure(ws: Workspace, spec: ModelSpec, recs: Sequence[ItemRecord] | None = 
                        [r.label or "" for r in newer], probs, list(model.queues), hits)
     meas.test_jll = test_jll
     meas.test_watch_probs = watch_probs
+    meas.layer = stacked.layer
     return meas
 
 
@@ -434,8 +435,13 @@ def _fit(ws: Workspace, engine: Engine, recs: list[ItemRecord], say: Progress,
         check()
         say("fitting the final model on every item", 0.8)
         model = history.model(base, "all")
-        if measurement.calibration.get("score_layer", {}).get("used"):
-            check()
+        if measurement.layer is not None and measurement.layer.applies_to(model.queues):
+            # the layer the scorecard measured, with the calibration and cutoffs fitted through it: the model
+            # keeps that one instead of refitting on every item's out-of-fold scores (a second 5-fold pass that
+            # doubled train time, and a layer no figure had described). Its note (converged) is already said.
+            model.layer_ = measurement.layer
+        elif measurement.layer is not None:
+            check()  # the newest items hold a queue the older ones lack: fit over every queue
             say("fitting the score layer on out-of-fold scores of every item", 0.85)
             oof_all = history.out_of_fold_jll([base], stratified_folds(labels, 5), which="all")[0]
             queues_all = history.queues("all")

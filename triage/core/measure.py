@@ -173,6 +173,8 @@ class Measurement:
     test_jll: np.ndarray | None = None  # time split: the test rows' joint log-likelihoods, before calibration
     # time split with the score layer on: the model's own posteriors, read by the watch-probability rule
     test_watch_probs: np.ndarray | None = None
+    # the score layer the scorecard measured (fitted on the measured items' out-of-fold scores; None: off)
+    layer: Any = None
     # when routing uses cutoffs other than the solved ones (set by hand): those, and the scorecard at them
     active_cutoffs: dict[str, float | None] | None = None
     at_active: Scorecard | None = None
