@@ -126,7 +126,7 @@ def test_openapi_describes_every_route(client: httpx.Client, live: tuple[str, An
     doc = r.json()
     assert doc["openapi"].startswith("3.1")
     served = [route for route in live[1].routes if isinstance(route, Route)]
-    assert len(served) == 5
+    assert len(served) == 6
     for route in served:
         assert route.path in doc["paths"], route.path
         for method in route.methods - {"HEAD"}:

@@ -24,7 +24,8 @@ from schemathesis.specs.openapi.checks import (
 
 from tests.service_support import serving
 
-OPERATIONS = ["POST /v1/route", "POST /v1/corrections", "GET /v1/health", "GET /v1/model", "GET /openapi.json"]
+OPERATIONS = ["POST /v1/route", "POST /v1/corrections", "GET /v1/health", "GET /v1/model", "GET /openapi.json",
+              "GET /metrics"]
 
 
 @pytest.fixture(scope="module")

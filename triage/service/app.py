@@ -71,6 +71,7 @@ def create_app(workspace: Path | str, *, token: str | None = None, max_body_byte
         Route("/v1/health", svc.endpoint(svc.health), methods=["GET"]),
         Route("/v1/model", svc.endpoint(svc.model), methods=["GET"]),
         Route("/openapi.json", svc.endpoint(svc.openapi_json), methods=["GET"]),
+        Route("/metrics", svc.endpoint(svc.metrics_text), methods=["GET"]),
     ]
     middleware = [Middleware(BrowserGuard, allowed_hosts=tuple(allowed_hosts))]
     if token is not None:

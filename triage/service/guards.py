@@ -104,7 +104,8 @@ class BrowserGuard:
 
 
 class BearerToken:
-    """Pure ASGI middleware: every /v1/ request except the public ones needs `Authorization: Bearer <token>`."""
+    """Pure ASGI middleware: every /v1/ request except the public ones, and /metrics (per-queue counts), needs
+    `Authorization: Bearer <token>`."""
 
     def __init__(self, app: ASGIApp, token: str) -> None:
         self.app = app
@@ -113,7 +114,8 @@ class BearerToken:
     async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
         if scope["type"] == "http":
             path = scope.get("path", "")
-            if path.startswith("/v1/") and path not in PUBLIC_PATHS and not self._allowed(scope):
+            guarded = (path.startswith("/v1/") and path not in PUBLIC_PATHS) or path == "/metrics"
+            if guarded and not self._allowed(scope):
                 response = error_response(401, "missing or wrong bearer token; send 'Authorization: Bearer "
                                                "<token>'", "Authorization",
                                           {"WWW-Authenticate": 'Bearer realm="triage"'})

@@ -35,6 +35,7 @@ from triage.app import (
 )
 from triage.service.errors import JSON, ApiError, busy, error_response, is_disk_full, store_failure, to_json
 from triage.service.groups import NotStarted, Pending, RouteGroups
+from triage.service.metrics import ServiceMetrics
 from triage.service.openapi import openapi_document
 from triage.service.validation import MAX_ID_CHARS, ItemChecker, correction_request
 
@@ -61,6 +62,7 @@ class Service:
         self.groups = RouteGroups(self._route_group, max_items=max(max_batch, GROUP_ITEMS))
         self.limiter = anyio.CapacityLimiter(workers)
         self.workers = workers
+        self.metrics = ServiceMetrics()
         # what health reports without taking any lock: set by the requests that find out
         self._last_write_full = False
 
@@ -127,6 +129,7 @@ class Service:
 
     def _failure(self, exc: BaseException, field: str | None = None) -> ApiError:
         self._last_write_full = is_disk_full(exc)
+        self.metrics.store_errors.inc()
         return store_failure(exc, self._clean(str(exc)), field)
 
     def endpoint(self, handler: Callable[[Request, float], Awaitable[Any]]) -> Callable[[Request], Awaitable[Response]]:
@@ -134,7 +137,12 @@ class Service:
 
         @functools.wraps(handler)
         async def run(request: Request) -> Response:
-            deadline = time.monotonic() + self.request_timeout_s
+            started = time.monotonic()
+            response = await answer(request, started + self.request_timeout_s)
+            self.metrics.request(handler.__name__, response.status_code, time.monotonic() - started)
+            return response
+
+        async def answer(request: Request, deadline: float) -> Response:
             try:
                 result = await handler(request, deadline)
                 return result if isinstance(result, Response) else JSON(result)
@@ -228,6 +236,7 @@ class Service:
             except WorkspaceError as exc:
                 raise ApiError(status_for(exc), self._clean(str(exc))) from exc
             self._last_write_full = False
+        self.metrics.decisions(decisions)
         at = 0
         for job in ready:
             job.decisions = decisions[at:at + len(job.records)]
@@ -261,6 +270,7 @@ class Service:
                         None if isinstance(exc, NoModel | Conflict) else "queue"
                     raise ApiError(status_for(exc), self._clean(str(exc)), field) from exc
                 self._last_write_full = False
+                self.metrics.corrections.inc()
                 c = report.correction
                 answer = to_json({"correction_id": c.id, "item_id": c.item_id, "before": report.before,
                                   "after": report.after, "by": c.by, "at": c.at,
@@ -276,6 +286,12 @@ class Service:
 
     async def openapi_json(self, request: Request, deadline: float) -> Any:
         return self.openapi
+
+    async def metrics_text(self, request: Request, deadline: float) -> Any:
+        """Never waits on the workspace lock: the counters and the version already loaded."""
+        active = self.ws.active_version
+        return Response(self.metrics.exposition(active.version if active else None),
+                        media_type=self.metrics.content_type)
 
 
 def status_for(exc: WorkspaceError) -> int:

@@ -1,6 +1,6 @@
 """The OpenAPI 3.1 description of the service, written out by hand.
 
-Written by hand rather than generated: the service has five routes and no framework models, and the document
+Written by hand rather than generated: the service has six routes and no framework models, and the document
 is a contract (tests hold every answer to it, and the schema-driven test sends requests built from it).
 `openapi_document` fills in one workspace's field names and value types.
 """
@@ -28,8 +28,8 @@ OPENAPI: dict[str, Any] = {
         "title": "triage routing service",
         "version": API_VERSION,
         "description": "Route items (tickets, leads) into queues, explain each decision, learn from corrections. "
-                       "Errors are {error, field}. When the server has a token, every /v1/ path except "
-                       "/v1/health needs 'Authorization: Bearer <token>'.",
+                       "Errors are {error, field}. When the server has a token, /metrics and every /v1/ path "
+                       "except /v1/health need 'Authorization: Bearer <token>'.",
     },
     "servers": [{"url": "http://127.0.0.1:8477"}],
     "security": [{"bearer": []}],
@@ -112,6 +112,21 @@ OPENAPI: dict[str, Any] = {
                     "401": _answer("No or wrong bearer token"),
                     "403": _answer("A cross-origin request, refused"),
                     "409": _answer("No model trained yet"),
+                },
+            }
+        },
+        "/metrics": {
+            "get": {
+                "summary": "Counters since the service started, in the Prometheus text exposition format: items "
+                           "routed and held per queue, corrections, store errors, the active model version, "
+                           "request latency histograms per endpoint",
+                "operationId": "metrics",
+                "responses": {
+                    "200": {"description": "The exposition (text format 0.0.4)",
+                            "content": {"text/plain": {"schema": {"type": "string"}}}},
+                    "400": _answer("The Host header is not one this service answers to"),
+                    "401": _answer("No or wrong bearer token"),
+                    "403": _answer("A cross-origin request, refused"),
                 },
             }
         },
