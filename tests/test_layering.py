@@ -81,7 +81,7 @@ def test_the_check_sees_a_front_end_when_one_is_loaded() -> None:
 PACKAGE = Path(triage.core.__file__).parents[1]
 FRONT_END_PACKAGES = ("triage.cli", "triage.service", "triage.tui")
 FRONT_END_MAY_IMPORT = ("triage.app", "triage.config", "triage.records", *FRONT_END_PACKAGES)
-FRONT_END_LIBRARIES = {"rich", "textual", "starlette", "uvicorn", "anyio"}
+FRONT_END_LIBRARIES = {"rich", "textual", "starlette", "uvicorn", "anyio", "prometheus_client"}
 UI_LIBRARIES = {"rich", "textual", "starlette", "uvicorn"}
 
 
