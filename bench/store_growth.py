@@ -38,10 +38,12 @@ def main() -> None:
         with Workspace.open(root) as ws:
             ws.store._conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
             before = _size(root)
-            items = [r.item_id for r in ws.store.labelled_items()]
+            items = ws.store.labelled_items()
             queues = list(ws.model.queues)
             for i in range(args.corrections):
-                ws.correct(items[i % len(items)], queues[i % len(queues)], "bench")
+                rec = items[i % len(items)]
+                others = [q for q in queues if q != ws.store.get_item(rec.item_id).label]  # its own is refused
+                ws.correct(rec.item_id, others[i % len(others)], "bench")
             ws.store._conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
             after = _size(root)
             rows = ws.store._all("SELECT version, length(config_json) FROM model_versions WHERE kind = 'correction'")

@@ -371,6 +371,8 @@ CLI_CASES = [
                                                    "--new-queue")),
     (("correct", ROWS[0]["ticket_id"], "netwrok"), ("not a known queue", "--new-queue")),
     (("correct", ROWS[0]["ticket_id"], "not a queue!", "--new-queue"), ("use letters, digits",)),
+    (("correct", ROWS[0]["ticket_id"], ROWS[0]["queue"]), (f"{ROWS[0]['ticket_id']} is already in "
+                                                           f"{ROWS[0]['queue']}", "nothing recorded")),
 ]
 
 

@@ -442,9 +442,11 @@ def test_concurrent_routes_and_corrections_lose_nothing(base_dir: Path, tmp_path
             t.join(timeout=300)
         flat = [a for per in answers for a in per]
         assert len(flat) == 200
-        assert all(status == 200 for _, status, _ in flat), [a for a in flat if a[1] != 200][:3]
-        done = [body for kind, _, body in flat if kind == "correct"]
-        assert len(done) == 68
+        # a correction to the queue the item has by then (another client's got there first) is refused, 409
+        same = [a for a in flat if a[0] == "correct" and a[1] == 409 and "is already in" in a[2]["error"]]
+        assert all(a[1] == 200 for a in flat if a not in same), [a for a in flat if a[1] != 200][:3]
+        done = [body for kind, status, body in flat if kind == "correct" and status == 200]
+        assert len(done) + len(same) == 68
 
         journal = Store.open(root / "triage.db")
         try:

@@ -63,10 +63,10 @@ def test_a_correction_version_does_not_copy_the_calibration(trained: Path, tmp_p
     them instead of copying them (the store grew by about 9 KB per correction before)."""
     root = copy_workspace(trained, tmp_path)
     with Workspace.open(root) as ws:
-        ids = [r.item_id for r in ws.store.labelled_items()[:30]]
         queues = list(ws.model.queues)
-        for i, item in enumerate(ids):
-            ws.correct(item, queues[i % len(queues)], "tester")
+        for i, rec in enumerate(ws.store.labelled_items()[:30]):
+            others = [q for q in queues if q != rec.label]  # its own queue is refused: nothing to correct
+            ws.correct(rec.item_id, others[i % len(others)], "tester")
         versions = ws.models()
         rows = ws.store._all("SELECT kind, length(config_json) FROM model_versions ORDER BY version")
         parts = ws.store._all("SELECT count(*) FROM shared_parts")[0][0]

@@ -14,7 +14,7 @@ from sklearn.metrics import confusion_matrix, precision_recall_fscore_support
 from statsmodels.stats.proportion import proportion_confint
 
 from triage.app import Workspace, WorkspaceError
-from triage.app.errors import UnknownQueue
+from triage.app.errors import AlreadyInQueue, Conflict, UnknownQueue
 from triage.core.model import NaiveBayes
 from triage.core.routing import decide
 
@@ -156,6 +156,27 @@ def test_a_correction_to_a_new_queue(ws: Workspace) -> None:
         ws.correct(item, "not a queue!", by="dana")
     with pytest.raises(WorkspaceError):
         ws.correct(item, "   ", by="dana")
+
+
+def test_a_correction_to_the_queue_the_item_has_is_refused(ws: Workspace) -> None:
+    row = demo_rows(1)[0]
+    item, queue = row["ticket_id"], row["queue"]
+    v0 = ws.active_version.version
+    with pytest.raises(AlreadyInQueue, match=rf"{item} is already in {queue}: nothing to correct, nothing recorded"):
+        ws.correct(item, queue, by="dana")
+    with pytest.raises(Conflict):  # the service maps it as a clash with the stored state
+        ws.correct(item, f"  {queue} ", by="dana")
+    assert ws.store.corrections() == [] and ws.active_version.version == v0
+    assert [v.version for v in ws.models()] == [v0]
+
+    # a second workspace opened before another one decided the item: its stale view must not add "X -> X"
+    other = next(q for q in ws.model.queues if q not in (queue, "safety"))
+    with Workspace.open(ws.root) as second:
+        ws.correct(item, other, by="dana")
+        with pytest.raises(AlreadyInQueue, match=f"already in {other}"):
+            second.correct(item, other, by="lee")
+        assert [c.by for c in second.store.corrections()] == ["dana"]
+        assert second.active_version.version == v0 + 1
 
 
 def test_scorecard_equals_sklearn_on_the_held_out_rows(trained: tuple[Path, object]) -> None:

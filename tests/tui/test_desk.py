@@ -9,9 +9,10 @@ from pathlib import Path
 import pytest
 from textual.widgets import DataTable, Static, TabbedContent
 
+from triage.app import Workspace
 from triage.app.work_order import work_order
 from triage.tui.app import TriageApp
-from triage.tui.views import IncomingView
+from triage.tui.views import IncomingView, ReviewView
 from triage.tui.widgets import NameScreen, QueuePicker
 
 from .pilot import run, settle, text_of
@@ -81,5 +82,37 @@ def test_the_to_review_count_is_on_the_tab_and_on_overview(workspace_path: Path)
         assert label == f"5 Review ({order.to_review}, safety {order.safety})"
         assert f"to review: {order.to_review} (safety {order.safety})" in text_of(
             app.query_one("#overview-review", Static))
+
+    run(go, workspace_path)
+
+
+def test_a_decision_made_elsewhere_meanwhile_is_a_notice_not_a_new_version(workspace_path: Path,
+                                                                          monkeypatch: pytest.MonkeyPatch) -> None:
+    """While the reviewer types their name, another process gives the item the same queue: the UI records
+    nothing (the application layer refuses "X -> X") and says so plainly instead of showing an error."""
+    monkeypatch.delenv("TRIAGE_REVIEWER")
+
+    async def go(app: TriageApp, pilot) -> None:  # noqa: ANN001
+        ws = app.ws
+        await pilot.press("5")
+        await settle(app, pilot)
+        entry = app.query_one(ReviewView).selected()
+        assert entry is not None and ws.store.get_item(entry.item.item_id).label is None
+        await pilot.press("a")  # accept the suggestion: the UI asks who is deciding first
+        await pilot.pause()
+        assert isinstance(app.screen, NameScreen)
+        with Workspace.open(workspace_path) as elsewhere:  # a second process decides the same item meanwhile
+            elsewhere.correct(entry.item.item_id, entry.item.suggested, by="Cy Elsewhere")
+        versions = [v.version for v in ws.models()]
+        for ch in "Bo":
+            await pilot.press(ch)
+        await pilot.press("enter")
+        await settle(app, pilot)
+        assert [c.by for c in ws.store.corrections()] == ["Cy Elsewhere"]
+        assert [v.version for v in ws.models()] == versions
+        said = [(n.title, n.message, n.severity) for n in app._notifications]
+        assert ("nothing to record", f"{entry.item.item_id} is already in {entry.item.suggested}: nothing to "
+                "correct, nothing recorded", "information") in said, said
+        assert not [s for s in said if s[2] == "error"], said
 
     run(go, workspace_path)

@@ -10,6 +10,7 @@ a stream of items (stdin, an HTTP body), the config inference and the types they
 
 from triage.app.decisions import CorrectionReport, ImportReport, RoutingDecision, TrainReport
 from triage.app.errors import (
+    AlreadyInQueue,
     BadInput,
     Cancelled,
     Conflict,
@@ -34,7 +35,7 @@ from triage.ingest import IngestError, Reject, describe_reject, read_jsonl_strea
 from triage.store import StoreBusyError, StoreError, StoreFullError
 from triage.store.artifacts import ArtifactError
 
-__all__ = ["StoreBusyError", "StoreFullError", "Workspace", "WorkspaceError", "NoModel", "UnknownItem", "UnknownQueue", "Conflict", "BadInput",
+__all__ = ["StoreBusyError", "StoreFullError", "Workspace", "WorkspaceError", "NoModel", "UnknownItem", "UnknownQueue", "Conflict", "AlreadyInQueue", "BadInput",
            "Cancelled", "ConfigError", "Measurement", "TrainReport", "ImportReport", "CorrectionReport",
            "RoutingDecision", "HeldBy", "records_from_dicts", "Progress", "CONFIG_NAME", "DB_NAME",
            "CountError", "MissingFieldError", "IngestError", "StoreError", "ArtifactError", "USER_ERRORS",

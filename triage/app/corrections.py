@@ -14,7 +14,7 @@ from triage.app.active import (
     require_writable_model,
 )
 from triage.app.decisions import CorrectionReport
-from triage.app.errors import BadInput, UnknownItem, UnknownQueue
+from triage.app.errors import AlreadyInQueue, BadInput, UnknownItem, UnknownQueue
 from triage.app.routing import decide_records
 
 if TYPE_CHECKING:
@@ -52,8 +52,9 @@ def correct(ws: Workspace, item_id: str, queue: str, by: str = "operator", *,
             new_queue: bool = False, request_key: str | None = None) -> CorrectionReport:
     """Journal a correction (durable first), learn it exactly, and activate the corrected model.
 
-    A queue not yet known needs `new_queue=True` (see `check_queue`). `request_key`: a repeat with the same key
-    returns the first outcome and changes nothing. When the correction cannot be committed it is withdrawn
+    A queue not yet known needs `new_queue=True` (see `check_queue`); the queue the item already has is
+    refused (`AlreadyInQueue`), read under the lock so that a decision made elsewhere meanwhile counts.
+    `request_key`: a repeat with the same key returns the first outcome and changes nothing. When the correction cannot be committed it is withdrawn
     from the journal before the error is raised, so an error means "not done"."""
     queue = queue.strip()
     if not queue:
@@ -70,6 +71,8 @@ def correct(ws: Workspace, item_id: str, queue: str, by: str = "operator", *,
             if seen is not None and seen.applied_version is not None:
                 return CorrectionReport(seen, ws.store.get_model_version(seen.applied_version), seen.from_queue,
                                         seen.to_queue, decide_records(ws, [rec])[0])
+        if rec.label == queue:
+            raise AlreadyInQueue(f"{item_id} is already in {queue}: nothing to correct, nothing recorded")
         check_queue(ws, queue, new_queue=new_queue)
         c = ws.store.journal_correction(item_id, queue, by, active.version.version, request_key=request_key)
         before = rec.label

@@ -27,6 +27,11 @@ class Conflict(WorkspaceError):
     """The request clashes with the stored state (another process moved the model, an id stored otherwise)."""
 
 
+class AlreadyInQueue(Conflict):
+    """A correction to the queue the item already has: nothing would change, so nothing is recorded (a second
+    look at an item another person or process decided meanwhile must not add a version "X -> X")."""
+
+
 class BadInput(WorkspaceError):
     """A value given by the user is out of range or malformed."""
 
@@ -35,4 +40,4 @@ class Cancelled(WorkspaceError):
     """A long run was cancelled by the user; nothing was changed."""
 
 
-__all__ = ["WorkspaceError", "NoModel", "UnknownItem", "UnknownQueue", "Conflict", "BadInput", "Cancelled"]
+__all__ = ["WorkspaceError", "NoModel", "UnknownItem", "UnknownQueue", "Conflict", "AlreadyInQueue", "BadInput", "Cancelled"]

@@ -12,7 +12,7 @@ from collections.abc import Callable, Sequence
 
 from textual.widget import Widget
 
-from triage.app import Workspace
+from triage.app import AlreadyInQueue, Workspace
 from triage.tui.messages import LabelsChanged
 from triage.tui.views.base import _err
 from triage.tui.widgets import ConfirmScreen, NameScreen, QueuePicker
@@ -64,6 +64,10 @@ def correct(view: Widget, ws: Workspace, item_id: str, queue: str, done: Done,
     def go(name: str) -> None:
         try:
             report = ws.correct(item_id, queue, by=name)
+        except AlreadyInQueue as exc:  # decided so elsewhere meanwhile: a notice, not an error, and no version
+            view.notify(str(exc), title="nothing to record")
+            done(item_id, queue)
+            return
         except Exception as exc:  # noqa: BLE001 - shown to the user
             _err(view, exc)
             return
