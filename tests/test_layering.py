@@ -117,7 +117,9 @@ def within(name: str, prefixes: tuple[str, ...] | set[str]) -> bool:
 
 def front_end_violations(source: str, where: str) -> list[str]:
     """What a front end's source does against the contract: imports outside the allowed layers and libraries,
-    numpy, a private name of the application layer (imported, or read off the workspace or an app module)."""
+    numpy, a private name of the application layer (imported, or read off the workspace or an app module), the
+    workspace's store (`ws.store`, `self.ws.store`, `state.workspace.store`: the workspace's methods say what a
+    front end may ask of it)."""
     tree = ast.parse(source)
     bad: list[str] = []
     app_names: set[str] = {"ws", "workspace"}
@@ -139,6 +141,11 @@ def front_end_violations(source: str, where: str) -> list[str]:
             name = owner.attr if isinstance(owner, ast.Attribute) else owner.id if isinstance(owner, ast.Name) else ""
             if name in app_names:
                 bad.append(f"{where}:{node.lineno}: reads the private {name}.{node.attr}")
+        elif isinstance(node, ast.Attribute) and node.attr == "store":
+            owner = node.value
+            name = owner.attr if isinstance(owner, ast.Attribute) else owner.id if isinstance(owner, ast.Name) else ""
+            if name in app_names:
+                bad.append(f"{where}:{node.lineno}: reaches the store through {name}.store")
     return bad
 
 
@@ -185,13 +192,20 @@ def test_the_contract_checks_can_fail() -> None:
         from triage.app import Workspace
         def f(ws: Workspace) -> None:
             ws._active.model
+            ws.store.queue_counts()
+        class View:
+            def g(self) -> None:
+                self.ws.store.get_item("a")
+                self.app.state.workspace.store.path
     """)
     found = front_end_violations(broken, "made-up")
     assert any("imports numpy" in v for v in found)
     assert any("imports triage.store" in v for v in found)
     assert any("private triage.app.active._AlreadyApplied" in v for v in found)
     assert any("private ws._active" in v for v in found)
-    fine = "from triage.app import Workspace\nimport rich\nfrom triage import __version__\n"
+    assert sorted(int(v.split(":")[1]) for v in found if "reaches the store" in v) == [8, 11, 12]
+    fine = ("from triage.app import Workspace\nimport rich\nfrom triage import __version__\n"
+            "def f(ws: Workspace, shop: object) -> None:\n    ws.item('a'); shop.store\n")
     assert front_end_violations(fine, "made-up") == []
     # a layer check sees a forbidden import in a real file: the CLI imports the application layer
     assert layer_violations(sources("triage.cli"), {"triage.app"}) != []

@@ -27,6 +27,17 @@ def known_queues(ws: Workspace) -> set[str]:
     return (set(active.model.queues) if active is not None else set()) | set(ws.store.queue_counts())
 
 
+def reply_for(ws: Workspace, request_key: str) -> str | None:
+    """The answer (JSON text) given the first time a correction was asked with this idempotency key, or None;
+    a repeat of the request gets it back word for word."""
+    return ws.store.reply_for(request_key)
+
+
+def save_reply(ws: Workspace, request_key: str, correction_id: int, reply_json: str) -> None:
+    """Keep the answer to a correction asked with an idempotency key; the first answer kept stays."""
+    ws.store.save_reply(request_key, correction_id, reply_json)
+
+
 def check_queue(ws: Workspace, queue: str, *, new_queue: bool) -> None:
     """May an item be sent to `queue`? Decided here, once, for the command line, the service and the UI.
 

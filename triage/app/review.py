@@ -103,6 +103,12 @@ class IncomingRow:
     held_by: HeldBy | None = None
 
 
+def incoming_queues(ws: Workspace) -> list[str]:
+    """The queues the incoming page can filter by: the active model's (the ones a decision can suggest), or,
+    with no model yet, the labelled items'; sorted."""
+    return sorted(ws.model.queues if ws.model else ()) or sorted(ws.store.queue_counts())
+
+
 def incoming(ws: Workspace, queue: str | None = None, held: bool | None = None,
              text: str = "") -> tuple[int | None, list[IncomingRow]]:
     """The latest run's stored decisions (its id, or None when nothing was routed yet), filtered: suggested

@@ -15,7 +15,7 @@ from triage.app.active import (
 )
 from triage.app.errors import BadInput, Conflict, UnknownQueue
 from triage.app.training import measure
-from triage.store import ModelVersion
+from triage.store import Correction, ModelVersion
 
 if TYPE_CHECKING:
     from triage.app.workspace import Workspace
@@ -23,6 +23,13 @@ if TYPE_CHECKING:
 
 def models(ws: Workspace) -> list[ModelVersion]:
     return ws.store.model_versions()
+
+
+def corrections_missing_from(ws: Workspace, version: int) -> list[Correction]:
+    """The corrections in effect (applied, not undone, not an undo) that model version `version` has not
+    learned, oldest first: made against it or a later version, or applied into a later one. What activating it
+    leaves out of the model (they stay in the journal and the labels, and the next training learns them)."""
+    return [c for c in ws.store.corrections(since_version=version) if c.status == "applied" and c.undo_of is None]
 
 
 def activate(ws: Workspace, version: int) -> ModelVersion:

@@ -20,6 +20,7 @@ from triage.config import Config, ConfigError, dump_config, load_config
 from triage.core.model import NaiveBayes
 from triage.core.routing import RoutingPolicy
 from triage.ingest import describe_similar, read_items, similar_labels
+from triage.records import ItemRecord
 from triage.store import ModelVersion, Store
 
 CONFIG_NAME = "triage.toml"
@@ -60,6 +61,17 @@ class Workspace:
     @property
     def read_only(self) -> bool:
         return self.store.read_only
+
+    @property
+    def store_path(self) -> Path:
+        """The store's file: its messages name it (the service takes it out of what a client sees)."""
+        return self.store.path
+
+    def change_stamp(self) -> tuple[int, int | None]:
+        """A value that changes when another process commits to the store or edits the config, for a front end
+        that polls: SQLite's data_version (which this connection's own commits leave alone) and triage.toml's
+        mtime. One pragma and one stat, cheap enough to ask every few seconds."""
+        return int(self.store.pragma("data_version")), self._stamp()
 
     @staticmethod
     def create(root: Path | str, config: Config, comments: dict[str, str] | None = None,
@@ -168,6 +180,10 @@ class Workspace:
         summary = self.store.import_items(result.records, source=str(path))
         return ImportReport(result, summary.added, summary.unchanged, summary.conflicts)
 
+    def item(self, item_id: str) -> ItemRecord | None:
+        """The stored item with its current label, or None when no item has this id."""
+        return self.store.get_item(item_id)
+
     @property
     def rejects_dir(self) -> Path:
         """Rejected rows hold personal data: they stay in the workspace, never in a shared temporary folder."""
@@ -184,8 +200,13 @@ class Workspace:
     stored_with_other_fields = routing.stored_with_other_fields
     correct = corrections.correct
     undo = corrections.undo
+    known_queues = corrections.known_queues
+    reply_for = corrections.reply_for
+    save_reply = corrections.save_reply
     models = versions.models
     activate = versions.activate
     set_cutoffs = versions.set_cutoffs
+    corrections_missing_from = versions.corrections_missing_from
     explain = review.explain
     overview = review.overview
+    incoming_queues = review.incoming_queues

@@ -124,7 +124,7 @@ class Service:
 
     def _clean(self, message: str) -> str:
         """Messages from the store name its file; a client needs no server path."""
-        return message.replace(f"{self.ws.store.path}: ", "").replace(f"{self.ws.root}/", "") \
+        return message.replace(f"{self.ws.store_path}: ", "").replace(f"{self.ws.root}/", "") \
             .replace(f"{self.ws.root}: ", "")
 
     def _failure(self, exc: BaseException, field: str | None = None) -> ApiError:
@@ -253,11 +253,11 @@ class Service:
             with self._current(deadline) as ws:
                 self._require_model(ws)
                 if key is not None:
-                    first = ws.store.reply_for(key.strip())
+                    first = ws.reply_for(key.strip())
                     if first is not None:
                         return Response(first, media_type="application/json",
                                         headers={"Idempotent-Replayed": "true"})
-                if ws.store.get_item(req.item_id) is None:
+                if ws.item(req.item_id) is None:
                     raise ApiError(404, f"no item with id {req.item_id!r}; route it (or import it) first",
                                    "item_id")
                 try:
@@ -277,7 +277,7 @@ class Service:
                                   "model_version": report.version.version, "decision": report.decision})
                 if key is not None:
                     try:
-                        ws.store.save_reply(key.strip(), c.id, answer.decode("utf-8"))
+                        ws.save_reply(key.strip(), c.id, answer.decode("utf-8"))
                     except StoreError as exc:  # the correction is done; a repeat finds it by its key
                         log.warning("the reply to correction %d was not kept: %s", c.id, exc)
                 return Response(answer, media_type="application/json")

@@ -7,15 +7,11 @@ edits of triage.toml. Polling the pair every few seconds is cheap: one pragma an
 
 from __future__ import annotations
 
-from triage.app import CONFIG_NAME, Workspace
+from triage.app import Workspace
 
 POLL_SECONDS = 2.0
 
 
 def outside_stamp(ws: Workspace) -> tuple[int, int | None]:
     """A value that changes when another process commits to the store or edits the config."""
-    try:
-        config = (ws.root / CONFIG_NAME).stat().st_mtime_ns
-    except OSError:
-        config = None
-    return int(ws.store.pragma("data_version")), config
+    return ws.change_stamp()

@@ -40,7 +40,7 @@ def reviewer(view: Widget, then: Callable[[str], None]) -> None:
 
 
 def queues_of(ws: Workspace) -> list[str]:
-    return sorted(set(ws.model.queues if ws.model else []) | set(ws.store.queue_counts()))
+    return sorted(ws.known_queues())
 
 
 def pick_and_correct(view: Widget, ws: Workspace, item_id: str, suggested: str | None, done: Done) -> None:
@@ -55,7 +55,7 @@ def pick_and_correct(view: Widget, ws: Workspace, item_id: str, suggested: str |
 def correct(view: Widget, ws: Workspace, item_id: str, queue: str, done: Done,
             extra: Sequence[str] = ()) -> None:
     """Learn `item_id` -> `queue`: asks before changing a stored label, skips what is already so."""
-    current = ws.store.get_item(item_id)
+    current = ws.item(item_id)
     if current is not None and current.label == queue:
         view.notify(f"{item_id} is already in {queue} (decided elsewhere or before); nothing recorded")
         done(item_id, queue)

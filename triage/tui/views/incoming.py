@@ -62,7 +62,7 @@ class IncomingView(View):
         self.reload()
 
     def reload(self) -> None:
-        queues = sorted(set(self.ws.model.queues) if self.ws.model else set()) or sorted(self.ws.store.queue_counts())
+        queues = self.ws.incoming_queues()
         sel = self.query_one("#incoming-queue", Select)
         value = sel.value
         sel.set_options([(q, q) for q in queues])

@@ -322,8 +322,7 @@ class ModelsView(View):
             self.notify(f"version {version} is already active")
             return
 
-        lacking = [c for c in self.ws.store.corrections(since_version=version)
-                   if c.status == "applied" and c.undo_of is None]
+        lacking = self.ws.corrections_missing_from(version)
         lines = "".join(f"\n  {c.item_id} → {c.to_queue or 'no queue'} by {c.by}" for c in lacking[:6])
         more = f"\n  and {len(lacking) - 6} more" if len(lacking) > 6 else ""
         missing = (f"\nVersion {version} lacks {len(lacking)} correction{'s' if len(lacking) != 1 else ''} made "
