@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import csv
 import shutil
+import sqlite3
 import threading
 import time
 from collections.abc import Iterator
@@ -101,3 +102,20 @@ def serving(base: Path, dest: Path, server_options: dict[str, Any] | None = None
         yield url, app, root
 
 
+
+
+@contextmanager
+def store_locked_elsewhere(app: Any, root: Path) -> Iterator[None]:
+    """While inside, a second connection holds the store's write lock (BEGIN IMMEDIATE takes it at once,
+    sqlite.org/lang_transaction.html) and the service's own connection waits only 50 ms for it, so a write the
+    service tries fails as SQLite's "database is locked"; the lock is released (rolled back) on leaving."""
+    store = app.state.workspace.store
+    with store._lock:
+        store._conn.execute("PRAGMA busy_timeout = 50")
+    other = sqlite3.connect(root / "triage.db", isolation_level=None)
+    other.execute("BEGIN IMMEDIATE")
+    try:
+        yield
+    finally:
+        other.execute("ROLLBACK")
+        other.close()

@@ -5,7 +5,6 @@ against a real uvicorn server on loopback. The expected counts are the decisions
 
 from __future__ import annotations
 
-import sqlite3
 from collections import Counter
 from pathlib import Path
 from typing import Any
@@ -13,7 +12,7 @@ from typing import Any
 import httpx
 from prometheus_client.parser import text_string_to_metric_families
 
-from tests.service_support import TOKEN, serving
+from tests.service_support import TOKEN, serving, store_locked_elsewhere
 
 
 def _samples(text: str) -> dict[tuple[str, tuple[tuple[str, str], ...]], float]:
@@ -51,15 +50,8 @@ def test_metrics_count_what_the_service_answered(base_dir: Path, tmp_path: Path,
         store = app.state.workspace.store
         # not its own queue (that is refused before the store is written)
         queue = next(q for q in ("billing", "installation") if store.get_item(trained_ids[4]).label != q)
-        with store._lock:
-            store._conn.execute("PRAGMA busy_timeout = 50")
-        other = sqlite3.connect(root / "triage.db", isolation_level=None)
-        other.execute("BEGIN IMMEDIATE")
-        try:
+        with store_locked_elsewhere(app, root):
             locked = c.post("/v1/corrections", json={"item_id": trained_ids[4], "queue": queue})
-        finally:
-            other.execute("ROLLBACK")
-            other.close()
         assert locked.status_code == 503, locked.text
 
         after = _scrape(c)

@@ -9,13 +9,12 @@ this limit fail" with SQLITE_FULL), the lock a second connection's BEGIN IMMEDIA
 
 from __future__ import annotations
 
-import sqlite3
 from pathlib import Path
 from typing import Any
 
 import httpx
 
-from tests.service_support import serving
+from tests.service_support import serving, store_locked_elsewhere
 from triage.store import Store
 
 
@@ -119,16 +118,8 @@ def test_a_full_disk_is_507_and_nothing_is_journaled(base_dir: Path, tmp_path: P
 def test_a_locked_store_is_503_with_retry_after(base_dir: Path, tmp_path: Path,
                                                 trained_ids: list[str]) -> None:
     with serving(base_dir, tmp_path) as (url, app, root), httpx.Client(base_url=url, timeout=60) as c:
-        store = app.state.workspace.store
-        with store._lock:
-            store._conn.execute("PRAGMA busy_timeout = 50")
-        other = sqlite3.connect(root / "triage.db", isolation_level=None)
-        other.execute("BEGIN IMMEDIATE")
-        try:
+        with store_locked_elsewhere(app, root):
             r = c.post("/v1/corrections", json={"item_id": trained_ids[6], "queue": "billing"})
-        finally:
-            other.execute("ROLLBACK")
-            other.close()
         assert r.status_code == 503, r.text
         assert r.headers["retry-after"] == "1"
         assert "locked" in r.json()["error"]
