@@ -316,6 +316,10 @@ CONFIG_CASES = [
     ("thousands-unknown", '[fields.tenure_days]\nrole = "number"', '[fields.tenure_days]\nrole = "number"\n'
      'thousands = "#"', ("thousands", "use one of")),
     ("labels-chained", "[routing]", '[labels]\na = "b"\nb = "c"\n\n[routing]', ("'b' is both a target",)),
+    ("desk-reviwer", "[routing]\ntarget_precision = 0.95", '[routing]\ntarget_precision = 0.95\n\n[desk]\n'
+     'reviwer = "Dana"', ("[desk] unknown key 'reviwer'", "did you mean 'reviewer'")),
+    ("desk-empty-reviewer", "[routing]\ntarget_precision = 0.95", '[routing]\ntarget_precision = 0.95\n\n'
+     '[desk]\nreviewer = "  "', ("[desk.reviewer] must be a name",)),
 ]
 
 

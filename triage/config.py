@@ -26,11 +26,12 @@ class ConfigError(ValueError):
 # The keys each table may hold. A key or table not listed is an error, never skipped: a misspelt
 # `never_auto` silently switched off a queue's safety rule. [model] takes the ModelSettings fields, and
 # [labels] maps any queue name to another, so neither is listed here.
-TOP_TABLES = ("data", "fields", "model", "routing", "queues", "labels")
+TOP_TABLES = ("data", "fields", "model", "routing", "queues", "labels", "desk")
 DATA_KEYS = ("id", "label", "time", "max_text_chars")
 FIELD_KEYS = ("role", "weight", "bins", "thousands", "pieces")
 ROUTING_KEYS = ("target_precision", "watch_probability")
 QUEUE_KEYS = ("target_precision", "never_auto", "cutoff", "watch_words")
+DESK_KEYS = ("reviewer",)  # [desk]: the review desk (the terminal UI, and corrections from the command line)
 # thousands separators a number field may declare; with "." the decimal mark is "," (1.200,50)
 THOUSANDS = (",", ".", " ", "_", "'")
 
@@ -81,6 +82,8 @@ class Config:
     watch_probability: float = 0.10
     # [labels]: queue names in the data mapped to the queue they mean ("NETWORK" -> "network")
     labels: dict[str, str] = field(default_factory=dict)
+    # [desk] reviewer: the name corrections are recorded under when none is given (else TRIAGE_REVIEWER)
+    reviewer: str | None = None
 
     def never_auto(self) -> frozenset[str]:
         return frozenset(q for q, p in self.queues.items() if p.never_auto)
@@ -289,6 +292,13 @@ def config_from_dict(data: dict[str, Any], path: Path | str = "triage.toml", tex
             cutoff=None if cutoff is None else _number(path, f"{key}.cutoff", cutoff, lo=0, hi=1),
             watch_words=tuple(" ".join(w.split()).casefold() for w in words),
         )
+    desk = data.get("desk", {})
+    if not isinstance(desk, dict):
+        raise _fail(path, "desk", "must be a table")
+    _check_keys(path, text, ["desk"], desk, DESK_KEYS)
+    reviewer = desk.get("reviewer")
+    if reviewer is not None and (not isinstance(reviewer, str) or not reviewer.strip()):
+        raise _fail(path, "desk.reviewer", f"must be a name in quotes, not {reviewer!r}")
     max_text = dat.get("max_text_chars", 20_000)
     if isinstance(max_text, bool) or not isinstance(max_text, int) or max_text < 1:
         raise _fail(path, "data.max_text_chars", f"must be a whole number >= 1, not {max_text!r}")
@@ -300,6 +310,7 @@ def config_from_dict(data: dict[str, Any], path: Path | str = "triage.toml", tex
         max_text_chars=max_text,
         watch_probability=watch,
         labels=_labels_map(path, data.get("labels", {})),
+        reviewer=" ".join(reviewer.split()) if reviewer is not None else None,
     )
 
 
@@ -379,6 +390,8 @@ def dump_config(cfg: Config, comments: dict[str, str] | None = None) -> str:
         out.append("[labels]")
         out += [f"{_toml_key(k)} = {_toml_value(v)}" for k, v in cfg.labels.items()]
         out.append("")
+    if cfg.reviewer is not None:
+        out += ["[desk]", f"reviewer = {_toml_value(cfg.reviewer)}", ""]
     return "\n".join(out)
 
 

@@ -116,3 +116,25 @@ def test_a_decision_made_elsewhere_meanwhile_is_a_notice_not_a_new_version(works
         assert not [s for s in said if s[2] == "error"], said
 
     run(go, workspace_path)
+
+
+@pytest.mark.parametrize("env", [None, "Ada Tester"], ids=["no-environment", "environment-too"])
+def test_the_configured_reviewer_decides_without_being_asked(workspace_path: Path, env: str | None,
+                                                             monkeypatch: pytest.MonkeyPatch) -> None:
+    """`[desk] reviewer` in triage.toml names who decides: no prompt, and it comes before TRIAGE_REVIEWER."""
+    if env is None:
+        monkeypatch.delenv("TRIAGE_REVIEWER")
+    cfg = workspace_path / "triage.toml"
+    cfg.write_text(cfg.read_text(encoding="utf-8") + '\n[desk]\nreviewer = "Cleo Config"\n', encoding="utf-8")
+
+    async def go(app: TriageApp, pilot) -> None:  # noqa: ANN001
+        await pilot.press("5")
+        await settle(app, pilot)
+        entry = app.query_one(ReviewView).selected()
+        assert entry is not None
+        await pilot.press("a")
+        await settle(app, pilot)
+        assert not isinstance(app.screen, NameScreen)
+        assert [(c.item_id, c.by) for c in app.ws.store.corrections()] == [(entry.item.item_id, "Cleo Config")]
+
+    run(go, workspace_path)

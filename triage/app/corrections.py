@@ -4,6 +4,7 @@ activated as a new model version; undo is a correction back to the previous queu
 from __future__ import annotations
 
 import difflib
+import os
 from typing import TYPE_CHECKING
 
 from triage.app.active import (
@@ -19,6 +20,16 @@ from triage.app.routing import decide_records
 
 if TYPE_CHECKING:
     from triage.app.workspace import Workspace
+
+REVIEWER_ENV = "TRIAGE_REVIEWER"
+
+
+def reviewer(ws: Workspace) -> str | None:
+    """Who is deciding, when the person did not say: `[desk] reviewer` in triage.toml, else the environment's
+    TRIAGE_REVIEWER, else None (the terminal UI then asks; it never records a fixed name of its own)."""
+    if ws.config.reviewer:
+        return ws.config.reviewer
+    return " ".join(os.environ.get(REVIEWER_ENV, "").split()) or None
 
 
 def known_queues(ws: Workspace) -> set[str]:

@@ -5,14 +5,20 @@ from __future__ import annotations
 import argparse
 import json
 
-from triage.app import WorkspaceError
+from triage.app import Workspace, WorkspaceError
+from triage.app.corrections import reviewer
 from triage.cli.output import emit_json, open_workspace, out, pct
 from triage.cli.render import render_models
 
 
+def who(args: argparse.Namespace, ws: Workspace) -> str:
+    """The name a change is recorded under: --by, else the configured reviewer, else "operator"."""
+    return args.by or reviewer(ws) or "operator"
+
+
 def cmd_correct(args: argparse.Namespace) -> int:
     with open_workspace(args) as ws:
-        rep = ws.correct(args.id, args.queue, by=args.by, new_queue=args.new_queue)
+        rep = ws.correct(args.id, args.queue, by=who(args, ws), new_queue=args.new_queue)
         data = {"correction": vars(rep.correction), "model_version": rep.version.version, "before": rep.before,
                 "after": rep.after, "decision": rep.decision}
         if args.json:
@@ -27,7 +33,7 @@ def cmd_correct(args: argparse.Namespace) -> int:
 
 def cmd_undo(args: argparse.Namespace) -> int:
     with open_workspace(args) as ws:
-        rep = ws.undo(by=args.by)
+        rep = ws.undo(by=who(args, ws))
         if args.json:
             emit_json({"correction": vars(rep.correction), "model_version": rep.version.version})
         else:
@@ -61,7 +67,7 @@ def cmd_cutoff(args: argparse.Namespace) -> int:
     except ValueError:
         raise WorkspaceError(f"cutoff {args.value!r}: give a number between 0 and 1, or none") from None
     with open_workspace(args) as ws:
-        mv = ws.set_cutoffs({args.queue: value}, by=args.by)
+        mv = ws.set_cutoffs({args.queue: value}, by=who(args, ws))
     if args.json:
         emit_json({"version": mv.version, "queue": args.queue, "cutoff": value})
     else:

@@ -75,10 +75,11 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("queue", help="the right queue")
     sp.add_argument("--new-queue", action="store_true",
                     help="QUEUE is a new queue: create it (without this, a queue not yet known is refused)")
-    sp.add_argument("--by", default="operator", help="who made the correction")
+    sp.add_argument("--by", help="who made the correction (default: [desk] reviewer in triage.toml, else "
+                    "TRIAGE_REVIEWER, else operator)")
     sp = add("undo", cmd_undo, "undo the newest correction, whoever made it (journaled and learned like any "
              "correction)")
-    sp.add_argument("--by", default="operator", help="who undoes it (recorded in the journal)")
+    sp.add_argument("--by", help="who undoes it, recorded in the journal (default as for correct)")
     sp = add("models", cmd_models, "list model versions, or activate one (rollback)")
     sp.add_argument("action", nargs="?", choices=["list", "activate"], default="list", help="list or activate")
     sp.add_argument("version", nargs="?", type=int, help="the version to activate")
@@ -86,7 +87,7 @@ def build_parser() -> argparse.ArgumentParser:
              "parent)")
     sp.add_argument("queue", help="the queue")
     sp.add_argument("value", help="a confidence between 0 and 1, or none to auto-route nothing")
-    sp.add_argument("--by", default="operator", help="who set it")
+    sp.add_argument("--by", help="who set it (default as for correct)")
     add("overview", cmd_overview, "items, queues, the active model and the latest routing run, in one view")
     sp = add("tune", cmd_tune, "compare model settings by cross-validation, side by side; --adopt the best")
     sp.add_argument("--folds", type=int, default=5, help="cross-validation folds (default 5)")

@@ -368,8 +368,9 @@ class NameScreen(ModalScreen[str | None]):
     def compose(self) -> ComposeResult:
         with Vertical(id="dialog") as box:
             box.border_title = "who is deciding?"
-            yield Label("Your name goes into the corrections journal with each decision (set TRIAGE_REVIEWER "
-                        "to skip this question).", id="name-why")
+            yield Label("Your name goes into the corrections journal with each decision (reviewer = \"...\" "
+                        "under [desk] in triage.toml, or TRIAGE_REVIEWER, skips this question).", id="name-why",
+                        markup=False)
             yield Input(placeholder="your name, then enter", id="name-input")
 
     def on_mount(self) -> None:

@@ -1,31 +1,32 @@
 """Making a correction from any list (Review, Incoming, the items behind a scorecard cell), the same way.
 
-Who decides: the reviewer's name comes from TRIAGE_REVIEWER, else the user types it once per session (never
-a fixed name). Relabelling an item that already has a stored label changes history, so it is asked first. A
-row older than the item's label (another process decided it) is not learned twice.
+Who decides: the reviewer's name comes from `[desk] reviewer` in triage.toml, else TRIAGE_REVIEWER
+(`triage.app.corrections.reviewer`), else the user types it once per session (never a fixed name).
+Relabelling an item that already has a stored label changes history, so it is asked first. A row older than
+the item's label (another process decided it) is not learned twice.
 """
 
 from __future__ import annotations
 
-import os
 from collections.abc import Callable, Sequence
 
 from textual.widget import Widget
 
 from triage.app import AlreadyInQueue, Workspace
+from triage.app.corrections import reviewer as configured_reviewer
 from triage.tui.messages import LabelsChanged
 from triage.tui.views.base import _err
 from triage.tui.widgets import ConfirmScreen, NameScreen, QueuePicker
-
-REVIEWER_ENV = "TRIAGE_REVIEWER"
 
 Done = Callable[[str, str], None]  # (item id, queue) once learned
 
 
 def reviewer(view: Widget, then: Callable[[str], None]) -> None:
-    """Call `then(name)` with the reviewer's name: the app's, the environment's, or asked for now."""
+    """Call `then(name)` with the reviewer's name: the one this session has, the configured one (triage.toml,
+    then the environment), or asked for now."""
     app = view.app
-    name = getattr(app, "reviewer_name", None) or os.environ.get(REVIEWER_ENV, "").strip()
+    ws = getattr(app, "ws", None)
+    name = getattr(app, "reviewer_name", None) or (configured_reviewer(ws) if ws is not None else None)
     if name:
         app.reviewer_name = name  # type: ignore[attr-defined]
         then(name)
