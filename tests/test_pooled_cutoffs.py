@@ -63,7 +63,9 @@ def test_pooled_cutoffs_keep_the_promise_on_test_items(fitted) -> None:
     pooled = [queues.index(q) for q, i in info.items() if i["method"].startswith("pooled")]
     assert pooled, "pooling opened or lowered no queue on this split"
     mine = routed & np.isin(pred, pooled)
-    assert mine.sum() >= 30
+    # enough items that the check below can fail (at a 90% target, 3 wrong of 20 fail it; common practice, no
+    # source); pooling borrows only from neighbours keeping the promise, so it opens less than a looser rule would
+    assert mine.sum() >= 20
     # the items routed by pooled cutoffs meet the target on test items, and so does everything routed
     assert (pred[mine] == y_te[mine]).mean() >= TARGET
     assert (pred[routed] == y_te[routed]).mean() >= TARGET
@@ -121,3 +123,25 @@ def test_a_small_queue_below_its_target_is_never_opened_by_a_strong_prior() -> N
     got = pooled_cutoffs(np.array(conf), np.array(top), np.array(correct), queues, dict.fromkeys(queues, 0.93))
     assert got["small"].cutoff is None and got["small"].why
     assert got["a"].cutoff is not None  # the large queues still route
+
+
+def test_neighbours_below_the_target_lend_nothing_even_when_their_spread_weakens_the_prior() -> None:
+    """A queue right on all 63 of its items beside neighbours at 50%, 75% and 97.5%: the neighbours' spread makes
+    the prior weak (about 2 pseudo-items), and a weak prior with so few pseudo-failures puts the posterior's 2.5%
+    quantile (scipy.stats.beta.ppf) near 0.959, above the 95% target, although the pool it borrows from routes at
+    about 75%. The queue's own Wilson bound (63 of 63: 0.943, Wilson 1927) does not pass either, so it must stay
+    closed: pooling borrows strength only from neighbours that themselves keep the promise at that cutoff.
+    Binomial arithmetic, no outside value."""
+    rng = np.random.default_rng(3)
+    conf, top, correct = [], [], []
+    for q, (n, right) in enumerate([(400, 200), (400, 300), (400, 390), (63, 63)]):
+        conf += [0.9] * n  # one cutoff for everyone
+        top += [q] * n
+        ok = np.zeros(n, dtype=bool)
+        ok[rng.choice(n, right, replace=False)] = True
+        correct += list(ok)
+    lo, _ = wilson_interval(63, 63)
+    assert lo < 0.95
+    queues = ["a", "b", "c", "small"]
+    got = pooled_cutoffs(np.array(conf), np.array(top), np.array(correct), queues, dict.fromkeys(queues, 0.95))
+    assert got["small"].cutoff is None and got["small"].why

@@ -108,8 +108,9 @@ def fit_policy(config: Config, oof: np.ndarray, y: np.ndarray,
 
 def keep_layer_if_better(ws: Workspace, stacked: StackedScores, labels: Sequence[str]) -> StackedScores:
     """The layer on or off by the one selection criterion (selection.rank_key) on the same out-of-fold items:
-    it stays only if it does not rank below the naive Bayes scores alone."""
-    if stacked.layer is None or stacked.base is None:
+    it stays only if it does not rank below the naive Bayes scores alone. `score_layer = true` keeps it whatever
+    the ranking (the user asked for it; only too little data turns it off then)."""
+    if stacked.layer is None or stacked.base is None or ws.config.model.score_layer is True:
         return stacked
     rules = cutoff_rules(ws.config, stacked.queues)
     ranks = []

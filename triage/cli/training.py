@@ -65,7 +65,8 @@ def cmd_train(args: argparse.Namespace) -> int:
                   "shows the full scorecard.")
         layer = c.get("score_layer") or {}
         out.print("Score layer: " + ("on (fitted on out-of-fold scores)." if layer.get("used")
-                                     else f"off: {layer.get('why', 'not fitted')}."), markup=False)
+                                     else f"off: {layer.get('why', 'not fitted')}.")
+                  + (f" Note: {layer['note']}." if layer.get("note") else ""), markup=False, soft_wrap=True)
         closed = [q for q, info in meas.cutoffs.items() if info.get("cutoff") is None and not info.get("never_auto")]
         if closed:
             why = meas.cutoffs[closed[0]].get("why", "")

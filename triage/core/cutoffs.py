@@ -16,8 +16,9 @@ says a lot about this one. At each candidate cutoff c:
 
 A small queue thus leans on the pooled precision; a large queue's own counts outweigh the prior. The queue's
 own promise is always checked as well: its own out-of-fold precision at the cutoff must reach the target too
-(the prior may lift the bound of a queue that is right on all it routes, never open one that is not), and from OWN_ONLY routed items on the pooled estimate is not used at
-all (the queue's own Wilson bound decides, as without pooling: measure.fit_policy takes the lower cutoff). A queue where no cutoff passes says why and what would help.
+(the prior may lift the bound of a queue that is right on all it routes, never open one that is not); the other queues' pooled precision at the cutoff must reach the target as well (a
+neighbourhood that does not keep the promise lends nothing, however widely spread), and from OWN_ONLY routed
+items on the pooled estimate is not used at all (the queue's own Wilson bound decides, as without pooling: measure.fit_policy takes the lower cutoff). A queue where no cutoff passes says why and what would help.
 """
 
 from __future__ import annotations
@@ -99,6 +100,11 @@ def pooled_cutoffs(conf: np.ndarray, top: np.ndarray, correct: np.ndarray, queue
         # only cutoffs this queue's own items take (a new item routes at its own confidence), below OWN_ONLY
         cand = np.concatenate(([True], n[1:, j] != n[:-1, j])) & (n[:, j] > 0) & (n[:, j] < OWN_ONLY)
         cand &= own >= target  # the queue's own precision keeps the promise at every cutoff it opens
+        # borrow only from neighbours that keep the promise themselves: the other queues' precision at the cutoff
+        # must reach the target. A poor neighbourhood spread wide makes the prior weak (few pseudo-failures), and
+        # its posterior quantile would then open a queue more readily than the queue's own Wilson bound does.
+        rest_n, rest_k = n.sum(axis=1) - n[:, j], k.sum(axis=1) - k[:, j]
+        cand &= (rest_n > 0) & (rest_k >= target * rest_n)
         lower = np.full(grid.size, -np.inf)
         lower[cand] = beta_dist.ppf(LEVEL, k[cand, j] + a0[cand], n[cand, j] - k[cand, j] + b0[cand])
         ok = cand & (lower >= target)
