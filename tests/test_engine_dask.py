@@ -108,6 +108,7 @@ def test_route_on_the_cluster_writes_parquet_and_stores_the_run(engine, trained,
     run = int(re.search(r"run-(\d+)\.parquet", captured.err).group(1))
     table = pq.read_table(ws_dir / "runs" / f"run-{run}.parquet")
     assert table.num_rows == 500 and table.to_pylist() == expected
+    assert (ws_dir / "runs" / f"run-{run}.parquet").stat().st_mode & 0o777 == 0o600  # the items' words: private
     with Workspace.open(ws_dir) as ws:
         stored = ws.store.decisions(batch_id=run, limit=1000)
         assert sorted(d.item_id for d in stored) == sorted(d["id"] for d in expected)

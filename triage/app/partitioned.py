@@ -3,12 +3,15 @@
 Each worker decides its partitions exactly as `routing.decide_batch` decides in this process (the same
 decisions, evidence included); the decisions come back one partition at a time, in file order, and are
 written to runs/run-<run id>.parquet in the workspace while they arrive. Then the items and decisions are
-stored in one transaction, as `route_records` stores them, with the same run summary.
+stored in one transaction, as `route_records` stores them, with the same run summary. The decisions hold the
+items' words (evidence, unseen words), so the file is created owner-only (0600, in a 0700 folder) like the
+store's own files, never through a symbolic link.
 """
 
 from __future__ import annotations
 
 import os
+import secrets
 from collections.abc import Sequence
 from dataclasses import dataclass, replace
 from pathlib import Path
@@ -28,6 +31,8 @@ if TYPE_CHECKING:
     from triage.app.workspace import Workspace
 
 RUNS_DIR = "runs"
+FILE_MODE = 0o600  # the decisions carry the items' words: personal data, as in the store
+DIR_MODE = 0o700
 # the columns of RoutingDecision.to_dict, typed (a test checks a run reads back equal to the JSON records)
 DECISION_SCHEMA = pa.schema([
     ("id", pa.string()), ("queue", pa.string()), ("suggested", pa.string()), ("confidence", pa.float64()),
@@ -82,14 +87,13 @@ def _route(ws: Workspace, records: Sequence[ItemRecord], source: str, engine: En
     # the item -> queue map of the training set stays here: workers only decide
     router = Router(replace(active, labels={}), ws.config.watch_words(),
                     tuple(f.name for f in ws.config.schema.text_fields))
-    runs = ws.root / RUNS_DIR
-    runs.mkdir(exist_ok=True)
-    tmp = runs / f".run-{os.getpid()}.parquet.part"
+    runs = _runs_folder(ws.root)
+    tmp = runs / f".run-{os.getpid()}-{secrets.token_hex(4)}.parquet.part"
     decisions: list[RoutingDecision] = []
     unseen = known = 0
     bounds = partition_bounds(len(records), rows, engine.workers)
     try:
-        with pq.ParquetWriter(tmp, DECISION_SCHEMA) as writer:
+        with _create(tmp) as fh, pq.ParquetWriter(fh, DECISION_SCHEMA) as writer:
             parts = engine.put([list(records[lo:hi]) for lo, hi in bounds])
             results = engine.run(decide_partition, parts, shared=engine.share(router))
             for part_decisions, (u, k) in engine.results(results):
@@ -110,6 +114,21 @@ def _route(ws: Workspace, records: Sequence[ItemRecord], source: str, engine: En
     finally:
         tmp.unlink(missing_ok=True)
     return [d.to_dict() for d in decisions], run_id
+
+
+def _runs_folder(root: Path) -> Path:
+    """The runs folder, made 0700 (or tightened to it: an older triage made it with the umask's mode)."""
+    runs = Path(root) / RUNS_DIR
+    runs.mkdir(mode=DIR_MODE, exist_ok=True)
+    if not runs.is_symlink() and runs.stat().st_mode & 0o077 and runs.stat().st_uid == os.getuid():
+        os.chmod(runs, DIR_MODE)
+    return runs
+
+
+def _create(path: Path) -> Any:
+    """A new file opened for binary writing: exclusively, mode 0600 whatever the umask, never through a link."""
+    fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL | os.O_NOFOLLOW, FILE_MODE)
+    return os.fdopen(fd, "wb")
 
 
 def parquet_path(ws_root: Path, run_id: int) -> Path:

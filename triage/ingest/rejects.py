@@ -14,6 +14,8 @@ from typing import Any
 from triage.ingest.values import is_missing, scalar_text
 from triage.records import ItemRecord
 
+FILE_MODE = 0o600  # the rejected rows are the export's personal data
+
 
 class IngestError(ValueError):
     """A problem with the whole file; the message names the file (and row/field when there is one)."""
@@ -67,7 +69,8 @@ def rejects_folder(source: Path, rejects_dir: Path | None) -> Path:
     so they stay where the rest of the data is), else beside the source file. Never the system's temporary
     folder, which other users of the machine can list."""
     folder = Path(rejects_dir) if rejects_dir is not None else source.resolve().parent
-    folder.mkdir(parents=True, exist_ok=True)
+    # the workspace's folder is made owner-only; the folder beside the source is the user's and keeps its mode
+    folder.mkdir(mode=0o700 if rejects_dir is not None else 0o777, parents=True, exist_ok=True)
     if not os.access(folder, os.W_OK):
         raise IngestError(f"{source.name}: cannot write the rejects file: {folder} is not writable; no row was "
                           "imported (give a writable workspace)")
@@ -81,7 +84,7 @@ def write_rejects_file(rejects: list[Reject], folder: Path, stem: str) -> Path:
     for n in range(1, 10_000):
         path = folder / (f"{stem}.rejects.csv" if n == 1 else f"{stem}.rejects-{n}.csv")
         try:
-            fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o600)
+            fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_EXCL | os.O_NOFOLLOW, FILE_MODE)
         except FileExistsError:
             continue
         with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
@@ -91,10 +94,12 @@ def write_rejects_file(rejects: list[Reject], folder: Path, stem: str) -> Path:
 
 
 def write_rejects(rejects: list[Reject], path: Path) -> None:
-    """Write rejects as CSV (row, field, reason, record) so they can be fixed and imported again."""
+    """Write rejects as CSV (row, field, reason, record) so they can be fixed and imported again; the file is
+    0600 even when it existed with a wider mode (O_TRUNC keeps the old mode), never written through a link."""
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
-    fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_TRUNC, 0o600)
+    fd = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_TRUNC | os.O_NOFOLLOW, FILE_MODE)
+    os.fchmod(fd, FILE_MODE)
     with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
         _write_rejects_to(rejects, fh)
 
