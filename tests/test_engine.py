@@ -2,17 +2,24 @@
 
 References: `Encoder.fit` + `NaiveBayes.fit` on all items at once and `core.selection.out_of_fold_jll` (the
 single-process definitions the engine must reproduce), and scikit-learn's `StratifiedKFold` for the folds.
+On two open datasets the partitioned counts also give scikit-learn's MultinomialNB and ComplementNB posteriors.
 Untransformed counts are integers and halves, summed exactly in any order, so those comparisons are exact;
 with tf-log, idf and length norm the partitions' sums are added in another order and agree to rounding.
 """
 
 from __future__ import annotations
 
+import re
+from pathlib import Path
+
 import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-from sklearn.model_selection import StratifiedKFold
+from sklearn.datasets import load_digits
+from sklearn.feature_extraction.text import CountVectorizer
+from sklearn.model_selection import StratifiedKFold, train_test_split
+from sklearn.naive_bayes import ComplementNB, MultinomialNB
 
 from triage.core.encode import Encoder
 from triage.core.model import TEXT_MODELS, ModelSpec, NaiveBayes
@@ -127,3 +134,78 @@ def test_open_engine_refuses_unknown_names() -> None:
     with pytest.raises(ValueError, match="--engine dask"):
         open_engine("local", scheduler="tcp://127.0.0.1:8786")
     assert isinstance(open_engine("local"), InProcessEngine)
+
+
+# ----- two open datasets, counted by partition, against scikit-learn's classifiers -----------------------------
+TEXT_ONLY = Schema(fields=(FieldSpec("text", FieldRole.TEXT),), id="id", label="queue")
+FORTUNES = Path("/usr/share/games/fortunes")  # the Debian package `fortunes`: one category per file
+FORTUNE_FILES = ("computers", "definitions", "people", "politics", "science", "songs-poems")
+REFERENCE_NB = {
+    "multinomial": lambda a: MultinomialNB(alpha=a),
+    "complement": lambda a: ComplementNB(alpha=a, norm=False),
+    "complement-norm": lambda a: ComplementNB(alpha=a, norm=True),
+}
+
+
+def _fit_by_partition(texts: list[str], labels: list[str], spec: ModelSpec) -> NaiveBayes:
+    """The model as training builds it: tokenised once, counted in partitions, the tables merged."""
+    h = History(InProcessEngine(), TEXT_ONLY, spec, [{"text": t} for t in texts], labels, rows=97)
+    try:
+        return h.model(spec)
+    finally:
+        h.close()
+
+
+def _assert_equals_sklearn(texts_train, y_train, texts_test, X_train, X_test, text_model: str, alpha: float,
+                           terms: list[str]) -> None:
+    """Same counts (the columns of X are `terms`), same alpha: the same log posteriors to 1e-9, the same picks."""
+    # sklearn's ComplementNB leaves the prior out (with more than one class): ours with a uniform prior is that
+    prior = "uniform" if text_model.startswith("complement") else "fitted"
+    spec = ModelSpec(text_model=text_model, alpha_text=alpha, prior=prior)
+    model = _fit_by_partition(texts_train, y_train, spec)
+    assert model.encoder.terms_ == terms  # our columns are the reference's columns, in order
+    ours_train = model.encoder.transform([{"text": t} for t in texts_train])
+    np.testing.assert_array_equal(ours_train.X.toarray(), X_train)  # the same counts on both sides
+    ref = REFERENCE_NB[text_model](alpha).fit(X_train, y_train)
+    assert list(ref.classes_) == model.queues
+    ours = model.predict_log_proba(model.encoder.transform([{"text": t} for t in texts_test]))
+    theirs = ref.predict_log_proba(X_test)
+    np.testing.assert_allclose(ours, theirs, rtol=0, atol=1e-9)
+    picks = np.asarray(model.queues)[ours.argmax(axis=1)]
+    assert (picks == ref.predict(X_test)).all()
+    assert len(set(picks)) > 2  # a model that picks one class everywhere would make the check hollow
+
+
+@pytest.mark.parametrize("alpha", [1.0, 0.1])
+@pytest.mark.parametrize("text_model", list(REFERENCE_NB))
+def test_digits_counted_by_partition_equal_sklearn(text_model: str, alpha: float) -> None:
+    # scikit-learn's bundled copy of the UCI "Optical Recognition of Handwritten Digits" test set
+    # (sklearn.datasets.load_digits, no download): 8x8 pixel intensities 0..16, used as counts of 64 words
+    digits = load_digits()
+    X, y = digits.data.astype(np.int64), np.array([f"digit{d}" for d in digits.target])
+    X_train, X_test, y_train, y_test = train_test_split(X, y, test_size=0.3, random_state=7, stratify=y)
+    seen = np.flatnonzero(X_train.sum(axis=0) > 0)  # a pixel never inked in training is no word of ours
+
+    def text(row: np.ndarray) -> str:
+        return " ".join(f"p{j:02d}" for j, c in enumerate(row) for _ in range(int(c)))
+
+    _assert_equals_sklearn([text(r) for r in X_train], list(y_train), [text(r) for r in X_test],
+                           X_train[:, seen], X_test[:, seen], text_model, alpha, [f"p{j:02d}" for j in seen])
+
+
+@pytest.mark.parametrize("text_model", list(REFERENCE_NB))
+def test_fortunes_counted_by_partition_equal_sklearn(text_model: str) -> None:
+    if not all((FORTUNES / f).is_file() for f in FORTUNE_FILES):
+        pytest.skip(f"the open dataset is absent from {FORTUNES}: `apt-get install fortunes`")
+    texts, labels = [], []
+    for name in FORTUNE_FILES:  # cookies are separated by lines holding only "%"
+        raw = (FORTUNES / name).read_text(encoding="utf-8", errors="replace")
+        cookies = [c.strip() for c in re.split(r"^%\s*$", raw, flags=re.M) if c.strip()]
+        texts += cookies
+        labels += [name] * len(cookies)
+    x_train, x_test, y_train, _ = train_test_split(texts, labels, test_size=0.3, random_state=3, stratify=labels)
+    # sklearn counts the same tokens (our tokenizer as its analyzer); its vocabulary is sorted, as ours is
+    vec = CountVectorizer(analyzer=Tokenizer().tokens, lowercase=False)
+    X_train = vec.fit_transform(x_train).toarray()
+    _assert_equals_sklearn(x_train, y_train, x_test, X_train, vec.transform(x_test), text_model, 0.5,
+                           list(vec.get_feature_names_out()))
