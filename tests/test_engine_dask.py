@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import json
 import re
+import socket
 from pathlib import Path
 
 import numpy as np
@@ -25,6 +26,8 @@ from triage.ingest import read_items
 
 distributed = pytest.importorskip("dask.distributed")
 
+import dask.config  # noqa: E402
+
 from tests.helpers import build_demo_workspace, copy_workspace  # noqa: E402
 from tests.test_engine import assert_same_model  # noqa: E402
 from triage.app import Workspace  # noqa: E402
@@ -37,7 +40,8 @@ CONFIG = load_config(ROOT / "configs" / "voltwren.toml")
 
 @pytest.fixture(scope="module")
 def engine():
-    cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None)
+    cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None,
+                                       host="127.0.0.1")  # loopback only
     client = distributed.Client(cluster)
     try:
         yield DaskEngine(client=client)
@@ -113,3 +117,47 @@ def test_route_on_the_cluster_writes_parquet_and_stores_the_run(engine, trained,
         stored = ws.store.decisions(batch_id=run, limit=1000)
         assert sorted(d.item_id for d in stored) == sorted(d["id"] for d in expected)
     assert main(["route", str(incoming), "-w", str(ws_dir), "--scheduler", address]) == 2  # needs --engine dask
+
+
+def _tasks_seen(engine: DaskEngine) -> int:
+    """How many task state changes the module's scheduler has made: it grows only when work runs there."""
+    return engine.client.run_on_scheduler(lambda dask_scheduler: dask_scheduler.transition_counter)
+
+
+def test_train_with_a_scheduler_address_joins_that_cluster(engine, trained, tmp_path, capsys) -> None:
+    ws_dir = copy_workspace(trained, tmp_path)
+    address = engine.client.scheduler.address
+    assert address.startswith("tcp://127.0.0.1:")
+    before = _tasks_seen(engine)
+    assert main(["train", "-w", str(ws_dir), "--json", "--engine", "dask", "--scheduler", address]) == 0
+    capsys.readouterr()
+    assert _tasks_seen(engine) > before  # the partitions were counted on that cluster, not on a new local one
+    with Workspace.open(ws_dir) as ws:
+        there = ws.model
+        ws.train(engine=InProcessEngine())
+        assert_same_model(ws.model, there)
+
+
+def _closed_port() -> int:
+    with socket.socket() as s:  # bound then closed: nothing listens there
+        s.bind(("127.0.0.1", 0))
+        return int(s.getsockname()[1])
+
+
+@pytest.mark.parametrize("command", ["train", "route"])
+def test_an_unreachable_scheduler_is_a_one_line_error_and_nothing_changes(trained, tmp_path, capsys,
+                                                                          command: str) -> None:
+    ws_dir = copy_workspace(trained, tmp_path)
+    address = f"tcp://127.0.0.1:{_closed_port()}"
+    with Workspace.open(ws_dir) as ws:
+        active, items, batch = ws.active_version, ws.store.count_items(), ws.store.latest_batch()
+    args = [command, "-w", str(ws_dir), "--engine", "dask", "--scheduler", address]
+    if command == "route":
+        args.insert(1, str(ROOT / "demo_corpus" / "voltwren_incoming.csv"))
+    # Dask's own connect setting, which the engine honours (the default of 30 s is long for a test)
+    with dask.config.set({"distributed.comm.timeouts.connect": "1s"}):
+        assert main(args) == 2
+    err = capsys.readouterr().err
+    assert "cannot reach the Dask scheduler" in err and address in err and "Traceback" not in err
+    with Workspace.open(ws_dir) as ws:
+        assert (ws.active_version, ws.store.count_items(), ws.store.latest_batch()) == (active, items, batch)

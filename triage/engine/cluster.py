@@ -31,8 +31,12 @@ class DaskEngine(Engine):
         if client is not None:
             self.client = client
         elif scheduler:
+            import dask.config
+
+            # how long to try: Dask's own setting (distributed.comm.timeouts.connect, 30 s unless the user's
+            # Dask configuration or DASK_DISTRIBUTED__COMM__TIMEOUTS__CONNECT says otherwise)
             try:
-                self.client = Client(scheduler, timeout="20s")
+                self.client = Client(scheduler, timeout=dask.config.get("distributed.comm.timeouts.connect"))
             except (OSError, TimeoutError) as e:
                 raise EngineError(f"cannot reach the Dask scheduler at {scheduler}: {e}") from e
             self._owned.append(self.client)
