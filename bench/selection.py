@@ -41,7 +41,7 @@ from sklearn.naive_bayes import BernoulliNB, ComplementNB, MultinomialNB  # noqa
 from sklearn.pipeline import make_pipeline  # noqa: E402
 
 from demo_corpus.generate import generate  # noqa: E402
-from triage.app.training import fit_policy as _fit_policy  # noqa: E402
+from triage.app.model_settings import fit_policy as _fit_policy  # noqa: E402
 from triage.config import load_config  # noqa: E402
 from triage.core.encode import EncodedBatch, Encoder  # noqa: E402
 from triage.core.metrics import solve_cutoff  # noqa: E402

@@ -15,7 +15,8 @@ import numpy as np
 import pytest
 
 from triage.app import Workspace, infer_config
-from triage.app.training import _fit, labelled
+from triage.app.measuring import labelled
+from triage.app.training import _fit
 from triage.engine import InProcessEngine
 
 FORTUNES = Path("/usr/share/games/fortunes")

@@ -19,8 +19,8 @@ from triage.app.errors import (
     UnknownQueue,
     WorkspaceError,
 )
+from triage.app.measuring import Progress
 from triage.app.routing import first_of_each_id, records_from_dicts
-from triage.app.training import Progress
 from triage.app.workspace import CONFIG_NAME, DB_NAME, Workspace
 from triage.config import ConfigError
 from triage.core.counts import CountError

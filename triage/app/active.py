@@ -104,14 +104,12 @@ def commit_version(ws: Workspace, parent: int | None | object, kind: str, config
     with ws.store.transaction():
         current = ws.store.active_model()
         active_now = current.version if current else None
-        if parent is ON_CURRENT:
-            parent = active_now
-        elif active_now != parent:
+        if parent is not ON_CURRENT and active_now != parent:
             raise StaleVersion
         if inside is not None:
             inside()
-        assert parent is None or isinstance(parent, int)
-        mv = ws.store.add_model_version(parent, kind, config, fingerprint, artifact, scorecard=scorecard, note=note)
+        # the new version's parent is the active one in both cases (asked for by name, or whichever is active)
+        mv = ws.store.add_model_version(active_now, kind, config, fingerprint, artifact, scorecard=scorecard, note=note)
         if after is not None:
             after(mv)
     return mv

@@ -14,7 +14,7 @@ from typing import Any
 import pandas as pd
 
 from triage.app.errors import BadInput, Conflict
-from triage.app.training import Progress
+from triage.app.measuring import Progress
 from triage.app.workspace import CONFIG_NAME, Workspace
 
 SCENARIO_FILES = {

@@ -18,7 +18,8 @@ import numpy as np
 import scipy.sparse as sp
 
 from triage.app.errors import BadInput, NoModel, UnknownQueue
-from triage.app.training import encode, fit_policy, labelled, spec_from_config
+from triage.app.measuring import encode, labelled
+from triage.app.model_settings import fit_policy, spec_from_config
 from triage.core.encode import EncodedBatch, Encoder
 from triage.core.metrics import captured_share, conditional_mutual_information, lift_table
 from triage.core.model import TEXT_MODELS

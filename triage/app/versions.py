@@ -14,7 +14,7 @@ from triage.app.active import (
     version_config,
 )
 from triage.app.errors import BadInput, Conflict, UnknownQueue
-from triage.app.training import measure
+from triage.app.measuring import measure
 from triage.store import Correction, ModelVersion
 
 if TYPE_CHECKING:

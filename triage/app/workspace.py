@@ -12,7 +12,7 @@ import threading
 from dataclasses import replace
 from pathlib import Path
 
-from triage.app import corrections, review, routing, training, versions
+from triage.app import corrections, measuring, review, routing, training, versions
 from triage.app.active import ActiveModel, LoadProblem, clean_models, load_active, replay_pending
 from triage.app.decisions import ImportReport
 from triage.app.errors import Conflict
@@ -190,10 +190,10 @@ class Workspace:
         return self.root / REJECTS_DIR
 
     # ----- the use cases, each in its own module ---------------------------------------------------------
-    measure = training.measure
-    measure_kfold = training.measure_kfold
+    measure = measuring.measure
+    measure_kfold = measuring.measure_kfold
     train = training.train
-    evaluate = training.evaluate
+    evaluate = measuring.evaluate
     decide_records = routing.decide_records
     route_records = routing.route_records
     route_file = routing.route_file
