@@ -84,3 +84,23 @@ def test_a_layer_stopped_at_its_iteration_limit_says_so() -> None:
     assert not again.converged
     full = ScoreLayer.fit(scores, y, QUEUES)
     assert full.converged and full.note() is None
+
+
+def test_a_kfold_measurement_reads_the_models_own_chance_for_the_safety_rule() -> None:
+    """k-fold rows are decided under their own fold's policy, with the same safety rule as routing: the larger of
+    the layer's and the model's own posterior for a never-auto queue (README's routing rules)."""
+    from triage.core.measure import Measurement
+    from triage.core.metrics import scorecard
+
+    model = _model_with_layer([8.0, 0.0, -30.0])  # the layer all but rules out "safety"
+    batch = model.encoder.transform([{"body": "invoice smoke"}, {"body": "invoice refund"}])
+    policy = RoutingPolicy({q: 0.0 for q in QUEUES}, never_auto=frozenset({"safety"}), watch_probability=0.10)
+    probs = policy.calibrated(model.joint_log_likelihood(batch))
+    own = model.watch_probabilities(batch)
+    assert own is not None and probs[0, 2] < 0.10 <= own[0, 2]
+    meas = Measurement(model.spec, policy, scorecard([], [], np.empty(0), QUEUES, {}), {}, {}, {},
+                       ["a", "b"], ["safety", "billing"], probs, QUEUES, None, np.array([0, 1]), [policy, policy])
+    assert meas.verdicts()[0].held_by is None  # the layer's chance alone would let it through
+    meas.test_watch_probs = own
+    first, second = meas.verdicts()
+    assert first.held_by is HeldBy.WATCH_PROBABILITY and second.queue == "billing"

@@ -77,3 +77,42 @@ def test_the_work_order_puts_safety_first_then_held_by_closeness(workspace_path:
             assert labels[e.item.item_id] not in (None, e.item.suggested)
             assert f"labelled {labels[e.item.item_id]}" in e.why
         assert both.to_review == order.to_review  # counts are of held items only
+
+
+
+def test_a_score_layer_cannot_talk_a_safety_item_out_of_the_safety_group(workspace_path: Path) -> None:
+    """The README's rule: a never-auto queue with a chance of at least watch_probability puts the item before a
+    person, and with a score layer the chance is the larger of the layer's and the model's own. Held items that
+    were held for another reason (below a cutoff) are re-read with the current policy; a layer that all but rules
+    the never-auto queue out must not keep such an item out of the safety group."""
+    from dataclasses import replace
+
+    import numpy as np
+
+    from triage.app.active import require_model
+    from triage.core.model import log_posterior
+    from triage.core.stack import ScoreLayer
+
+    with Workspace.open(workspace_path) as ws:
+        active = require_model(ws)
+        model = active.model
+        never = sorted(set(ws.config.never_auto()) & set(model.queues))
+        assert never, "the demo workspace has a never-auto queue"
+        rows = [r for r in _sql(workspace_path, OPEN_HELD)
+                if r[1] not in ("never_auto", "watch_word", "watch_probability") and r[2] not in never]
+        items = {r.item_id: r for r in ws.store.get_items([r[0] for r in rows])}
+        ids = [r[0] for r in rows]
+        batch = model.encoder.transform([items[i].fields for i in ids], allow_missing=True)
+        cols = [model.queues.index(q) for q in never]
+        own = np.exp(log_posterior(model.base_scores(batch)))[:, cols].max(axis=1)  # the model's own chance
+        low = float(np.quantile(own, 0.9))  # a watch probability that a tenth of these items reach
+        assert low > 0
+        active.policy = replace(active.policy, watch_probability=low)
+        must = {i for i, p in zip(ids, own, strict=True) if p >= low}
+        assert must
+        down = np.zeros(len(model.queues))
+        down[cols] = -30.0  # the layer all but rules the never-auto queues out
+        model.layer_ = ScoreLayer(tuple(model.queues), np.eye(len(model.queues)), down, 1.0)
+        assert model.layer_active
+        safety = {e.item.item_id for e in work_order(ws).entries if e.group is Group.SAFETY}
+    assert must <= safety

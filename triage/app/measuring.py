@@ -207,6 +207,8 @@ def measure_kfold(ws: Workspace, spec: ModelSpec, recs: Sequence[ItemRecord] | N
     k = n_folds_for(labels, folds)
     probs = np.zeros((n, len(queues)))
     raw = np.zeros((n, len(queues)))
+    watch = np.zeros((n, len(queues)))  # the model's own posteriors where a fold's layer is on (the safety rule)
+    any_layer = False
     fold_of = np.full(n, -1, dtype=np.int64)
     policies: list[RoutingPolicy] = []
     fold_info: list[dict[str, Any]] = []
@@ -223,12 +225,15 @@ def measure_kfold(ws: Workspace, spec: ModelSpec, recs: Sequence[ItemRecord] | N
         model.layer_ = inner_st.layer
         jll = model.joint_log_likelihood(subset(batch, test))
         probs[test], raw[test], fold_of[test] = policy.calibrated(jll), softmax_rows(jll), f
+        if (own := model.watch_probabilities(subset(batch, test))) is not None:
+            watch[test], any_layer = own, True
         policies.append(policy)
         fold_info.append({"fold": f, "train_items": len(train_rows), "test_items": len(test),
                           "temperature": cal["temperature"], "isotonic": cal["isotonic"], "cutoffs": cut})
     hits = watch_word_hits(ws, recs)
     meas = Measurement(spec, policies[0], scorecard([], [], np.empty(0), queues, {}), {}, {}, {},
                        [r.item_id for r in recs], labels, probs, queues, hits, fold_of, policies)
+    meas.test_watch_probs = watch if any_layer else None  # as routing decides: routing.decide's watch_probs
     verdicts = meas.verdicts()
     routed = np.array([not v.held for v in verdicts])
     # cutoffs differ by fold: the scorecard gets each item's routing outcome (1 routed, -1 held) against

@@ -18,6 +18,8 @@ from dataclasses import dataclass, field
 from enum import StrEnum
 from typing import TYPE_CHECKING
 
+import numpy as np
+
 from triage.app.review import ReviewReason, WorkItem, _held_by, worklist
 from triage.app.routing import watch_word_hits
 from triage.core.routing import HeldBy
@@ -75,6 +77,9 @@ def _held_entries(ws: Workspace) -> list[WorkEntry]:
         with ws.lock:
             batch = model.encoder.transform([r.fields for r in ordered], allow_missing=True)
             probs = policy.calibrated(model.joint_log_likelihood(batch))
+            # as routing reads it: a never-auto queue's chance is the larger of the layer's and the model's own
+            if (own := model.watch_probabilities(batch)) is not None:
+                probs = np.maximum(probs, own)
         hits = watch_word_hits(ws, ordered) or [[] for _ in ordered]
         for n, d in enumerate(chunk):
             held_by = _held_by(d.held_by)

@@ -171,7 +171,8 @@ class Measurement:
     test_folds: np.ndarray | None = None
     fold_policies: list[RoutingPolicy] = field(default_factory=list)
     test_jll: np.ndarray | None = None  # time split: the test rows' joint log-likelihoods, before calibration
-    # time split with the score layer on: the model's own posteriors, read by the watch-probability rule
+    # with the score layer on: the model's own posteriors, read by the watch-probability rule (k-fold: rows of a
+    # fold without a layer hold zeros, so the rule reads the calibrated probabilities there)
     test_watch_probs: np.ndarray | None = None
     # the score layer the scorecard measured (fitted on the measured items' out-of-fold scores; None: off)
     layer: Any = None
@@ -196,7 +197,9 @@ class Measurement:
         for f, p in enumerate(self.fold_policies):
             rows = np.flatnonzero(self.test_folds == f)
             hits = [self.test_hits[i] for i in rows] if self.test_hits is not None else None
-            for i, v in zip(rows, decide(self.test_probs[rows], self.model_queues, pol(p), hits), strict=True):
+            watch = self.test_watch_probs[rows] if self.test_watch_probs is not None else None
+            for i, v in zip(rows, decide(self.test_probs[rows], self.model_queues, pol(p), hits, watch),
+                            strict=True):
                 out[i] = v
         return [v for v in out if v is not None]
 
