@@ -59,7 +59,10 @@ def test_every_view_shows_the_workspace(workspace_path: Path) -> None:
         assert abs(sv.card.auto_precision - stored["auto_precision"]) < 1e-12
         # and it is what `triage evaluate` prints: the workspace's measurement, figure for figure
         assert sv.card.to_dict() == ws.evaluate().scorecard.to_dict()
-        assert "true \\ sugg." in text_of(app.query_one("#score-matrix", Static))
+        matrix = app.query_one("#matrix-table", DataTable)  # one row per true queue, one column per suggested
+        assert (matrix.row_count, len(matrix.columns)) == (len(sv.card.queues), len(sv.card.queues))
+        assert [str(matrix.get_cell_at((i, i))).split()[0] for i in range(matrix.row_count)] == [
+            str(sv.card.matrix[i][i]) if sv.card.matrix[i][i] else "·" for i in range(matrix.row_count)]
 
         await pilot.press("4")
         await settle(app, pilot)

@@ -223,6 +223,8 @@ class TriageApp(App[None]):
                     if isinstance(b, Binding)]
             if keys:
                 sections.append((title[2:], keys))
+        sections.append(("Scorecard", [("enter", "on a queue's row or a matrix cell (m): the test items behind "
+                                                 "it, with evidence; s there corrects one")]))
         sections.append(("Incoming", [("↑ ↓", "choose an item: its evidence shows below")]))
         sections.append(("Fields", [("↑ ↓", "choose a field")]))
         self.push_screen(HelpScreen(sections))

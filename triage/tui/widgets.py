@@ -71,27 +71,21 @@ def short_names(queues: Sequence[str]) -> list[str]:
     return keys
 
 
-def confusion_table(queues: Sequence[str], matrix: Sequence[Sequence[int]],
-                    shares: Sequence[Sequence[float]]) -> Table:
-    """Rows true queue, columns suggested queue; each cell: count, row share in %, shade character."""
+def matrix_cells(queues: Sequence[str], matrix: Sequence[Sequence[int]], shares: Sequence[Sequence[float]]
+                 ) -> tuple[list[str], list[tuple[Text, list[Text]]]]:
+    """The confusion matrix for a table without cell padding: column headers (A, B, ... for the suggested
+    queues) and per true queue its row label ("A billing") and cells (count, % of the row, shade; "·" for none),
+    each with a leading space as the column gap. A row's total is the per-queue table's "true items"."""
     keys = short_names(queues)
-    t = Table(title="confusion matrix: rows true, columns suggested\ncell: count, % of the row, shade",
-              title_justify="left", box=None, show_edge=False, pad_edge=False, padding=(0, 1), expand=False,
-              header_style="bold underline")
-    t.add_column("true \\ sugg.", no_wrap=True)
-    for k in keys:
-        t.add_column(k, justify="right", no_wrap=True)
-    t.add_column("n", justify="right")
+    rows: list[tuple[Text, list[Text]]] = []
     for i, q in enumerate(queues):
-        cells: list[Text | str] = [f"{keys[i]} {q}"]
+        cells: list[Text] = []
         for j in range(len(queues)):
-            s = shares[i][j]
-            c = matrix[i][j]
-            txt = f"{c} {round(100 * s):>3}{shade(s)}" if c else "·"
-            cells.append(Text(txt, style=cell_style(s, i == j)))
-        cells.append(str(sum(matrix[i])))
-        t.add_row(*cells)
-    return t
+            sh, c = shares[i][j], matrix[i][j]
+            txt = f" {c:>3} {round(100 * sh):>3}{shade(sh)}" if c else "·"
+            cells.append(Text(txt, style=cell_style(sh, i == j), justify="right"))
+        rows.append((Text(f"{keys[i]} {q} "), cells))
+    return keys, rows
 
 
 SUPERSCRIPT = str.maketrans("0123456789", "⁰¹²³⁴⁵⁶⁷⁸⁹")

@@ -14,14 +14,16 @@ from textual.widgets import DataTable, Static
 from textual.worker import Worker, WorkerState, get_current_worker
 
 from triage.app import Measurement, Scorecard, Workspace
+from triage.app.drilldown import cell, queue_row
 from triage.app.ranking import cell_items, ranking
 from triage.tui.messages import ModelChanged
 from triage.tui.views.base import View, _err
 from triage.tui.views.correct import reviewer
+from triage.tui.views.drill import MeasuredItemsScreen
 from triage.tui.views.ranking import MisroutesScreen, RankingScreen
 from triage.tui.widgets import (
     ConfirmScreen,
-    confusion_table,
+    matrix_cells,
     num,
     pct,
     reliability_chart,
@@ -75,6 +77,8 @@ class ScorecardView(View):
                 tooltip="The test items behind the selected queue's row and column of the matrix, with evidence"),
         Binding("k", "ranking", "Ranking", id="score.ranking",
                 tooltip="The selected queue's test items sorted by its score, with gain and lift (whom to call first)"),
+        Binding("m", "matrix", "Matrix", show=False, id="score.matrix",
+                tooltip="Go to the confusion matrix: arrows pick a cell, enter lists the items behind it"),
         Binding("c", "toggle_reliability", "Raw/calib.", id="score.reliability", show=False,
                 tooltip="Reliability chart: calibrated confidence or raw posterior (scrolls to it)"),
     ]
@@ -94,11 +98,15 @@ class ScorecardView(View):
         yield Static(id="score-summary")
         # the per-queue table stays put; the matrix and the charts scroll below it
         table = DataTable(id="queue-table", cursor_type="row", classes="panel")
-        table.border_title = "per queue, at the cutoffs (+ - try others)"
+        table.border_title = "per queue, at the cutoffs (+ - try others · enter lists its items)"
         yield table
         with VerticalScroll(id="score-scroll"):
             with Horizontal(id="score-lower"):
-                yield Static(id="score-matrix")
+                with Vertical(id="score-matrix"):
+                    yield Static(Text.assemble(("confusion matrix", "bold"), ": rows true, columns suggested\n",
+                                               ("cell: count, % of the row, shade · m, arrows, enter: its items",
+                                                "dim")), id="matrix-title")
+                    yield DataTable(id="matrix-table", cursor_type="cell", cell_padding=0)
                 with Vertical(id="score-charts"):
                     yield Static(id="score-plot")
                     yield Static(id="score-reliability")
@@ -290,9 +298,73 @@ class ScorecardView(View):
             t.update_cell(qs.queue, t.ordered_columns[2].key, cut)
         if t.row_count:
             t.move_cursor(row=min(max(row, 0), t.row_count - 1))
-        self.query_one("#score-matrix", Static).update(confusion_table(card.queues, card.matrix, card.row_shares()))
+        self.show_matrix(card)
         self.show_plot()
         self.show_reliability()
+
+    def show_matrix(self, card: Scorecard) -> None:
+        """The matrix as a table a cursor moves over (rows true, columns suggested); the cursor stays on its cell
+        across refreshes, and starts on the largest misroute."""
+        t = self.query_one("#matrix-table", DataTable)
+        first = t.row_count == 0
+        at = t.cursor_coordinate
+        header, rows = matrix_cells(card.queues, card.matrix, card.row_shares())
+        t.clear(columns=True)
+        for key, label in zip(card.queues, header, strict=True):
+            t.add_column(Text(label, justify="right"), key=key)
+        for q, (label, cells) in zip(card.queues, rows, strict=True):
+            t.add_row(*cells, key=q, label=label)
+        if first:
+            off = [(card.matrix[i][j], i, j) for i in range(len(card.queues)) for j in range(len(card.queues))
+                   if i != j and card.matrix[i][j]]
+            if off:
+                _, i, j = max(off, key=lambda x: (x[0], -x[1], -x[2]))
+                t.move_cursor(row=i, column=j)
+        elif t.row_count:
+            t.move_cursor(row=min(at.row, t.row_count - 1), column=min(at.column, len(card.queues) - 1))
+
+    def _shown_cutoffs(self) -> dict[str, float | None] | None:
+        """The cutoffs behind the figures on screen: None when they are the measurement's own."""
+        if self.meas is None or self.card is self.meas.scorecard:
+            return None
+        return dict(self.cutoffs)
+
+    def action_matrix(self) -> None:
+        t = self.query_one("#matrix-table", DataTable)
+        t.focus()
+        self.call_after_refresh(t.scroll_visible, animate=False)
+
+    def on_data_table_cell_selected(self, event: DataTable.CellSelected) -> None:
+        """Enter on a matrix cell: the test items truly of its row's queue that were suggested its column's."""
+        if event.data_table.id != "matrix-table":
+            return
+        event.stop()
+        if self.meas is None or self.card is None:
+            self.notify("the test items are still being scored")
+            return
+        label, suggested = str(event.cell_key.row_key.value), str(event.cell_key.column_key.value)
+        items = cell(self.ws, self.meas, label, suggested, self._shown_cutoffs())
+        routed = sum(not x.held for x in items)
+        self.app.push_screen(MeasuredItemsScreen(
+            self.ws, f"truly {label}, suggested {suggested}: {len(items)} test items",
+            f"{routed} auto-routed, {len(items) - routed} held at the cutoffs on screen; most confident first",
+            items))
+
+    def on_data_table_row_selected(self, event: DataTable.RowSelected) -> None:
+        """Enter on a queue's row: the test items suggested for it, auto-routed (wrong ones first) and held."""
+        if event.data_table.id != "queue-table":
+            return
+        event.stop()
+        q = self.selected_queue()
+        if q is None or self.meas is None:
+            self.notify("the test items are still being scored")
+            return
+        row = queue_row(self.ws, self.meas, q, self._shown_cutoffs())
+        wrong = sum(x.misrouted for x in row.routed)
+        self.app.push_screen(MeasuredItemsScreen(
+            self.ws, f"suggested {q}: {len(row.routed) + len(row.held)} test items",
+            f"{len(row.routed)} auto-routed ({wrong} truly elsewhere, ✗, first), then {len(row.held)} held, "
+            "closest to being routed first", [*row.routed, *row.held], show_label=True))
 
     def reliability_figures(self) -> tuple[dict[str, Any], str] | None:
         """The measurement's calibration figures on items calibration never saw, and which items: the newest
