@@ -47,6 +47,18 @@ def _utf8_failure(path: Path) -> IngestError:
     return IngestError(f"{path.name}: the file is not UTF-8; re-export it as UTF-8")
 
 
+
+def decode_line(raw: bytes, name: str, lineno: int, offset: int) -> str:
+    """One line of a file as text: UTF-8 (a byte-order mark on the first line dropped), or an error naming the
+    file, the line and the byte offset of the first byte that is not UTF-8 (`offset`: the line's own)."""
+    try:
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        bad = raw[exc.start : exc.start + 1].hex()
+        raise IngestError(f"{name}: line {lineno}: the file is not UTF-8 (byte 0x{bad} at byte offset "
+                          f"{offset + exc.start}); re-export it as UTF-8") from None
+    return text.removeprefix("\ufeff") if lineno == 1 else text
+
 class Reader:
     """Streams raw rows from one file. `columns` is known after `open()` for tabular formats, else None."""
 
@@ -138,18 +150,9 @@ class Reader:
         offset = 0
         with self.path.open("rb") as fh:
             for lineno, raw in enumerate(fh, start=1):
-                try:
-                    text = raw.decode("utf-8")
-                except UnicodeDecodeError as exc:
-                    bad = raw[exc.start : exc.start + 1].hex()
-                    raise IngestError(
-                        f"{self.name}: line {lineno}: the file is not UTF-8 (byte 0x{bad} at byte offset "
-                        f"{offset + exc.start}); re-export it as UTF-8"
-                    ) from None
+                text = decode_line(raw, self.name, lineno, offset)
                 offset += len(raw)
                 self.done = offset
-                if lineno == 1:
-                    text = text.removeprefix("\ufeff")
                 parsed = parse_json_line(text, lineno)
                 if parsed is not None:
                     yield parsed
@@ -247,16 +250,7 @@ class _Lines:
             if not raw:
                 raise StopIteration
             self.lineno += 1
-            try:
-                text = raw.decode("utf-8")
-            except UnicodeDecodeError as exc:
-                bad = raw[exc.start : exc.start + 1].hex()
-                raise IngestError(
-                    f"{self.reader.name}: line {self.lineno}: the file is not UTF-8 (byte 0x{bad} at byte offset "
-                    f"{self.offset + exc.start}); re-export it as UTF-8"
-                ) from None
-            if self.lineno == 1:
-                text = text.removeprefix("\ufeff")
+            text = decode_line(raw, self.reader.name, self.lineno, self.offset)
             self.offset += len(raw)
             self.reader.done = self.offset
             item = (self.lineno, text)
