@@ -114,6 +114,7 @@ def test_a_decision_made_elsewhere_meanwhile_is_a_notice_not_a_new_version(works
         assert ("nothing to record", f"{entry.item.item_id} is already in {entry.item.suggested}: nothing to "
                 "correct, nothing recorded", "information") in said, said
         assert not [s for s in said if s[2] == "error"], said
+        assert "by Bo" not in app.query_one(ReviewView).decided.get(entry.item.item_id, "")  # not credited to Bo
 
     run(go, workspace_path)
 

@@ -66,8 +66,9 @@ def correct(view: Widget, ws: Workspace, item_id: str, queue: str, done: Done,
         try:
             report = ws.correct(item_id, queue, by=name)
         except AlreadyInQueue as exc:  # decided so elsewhere meanwhile: a notice, not an error, and no version
+            # not marked "decided by NAME" here: someone else decided it; the watch on other processes
+            # (tui/outside.py) reads every view again with their decision
             view.notify(str(exc), title="nothing to record")
-            done(item_id, queue)
             return
         except Exception as exc:  # noqa: BLE001 - shown to the user
             _err(view, exc)
