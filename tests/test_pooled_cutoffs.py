@@ -145,3 +145,23 @@ def test_neighbours_below_the_target_lend_nothing_even_when_their_spread_weakens
     queues = ["a", "b", "c", "small"]
     got = pooled_cutoffs(np.array(conf), np.array(top), np.array(correct), queues, dict.fromkeys(queues, 0.95))
     assert got["small"].cutoff is None and got["small"].why
+
+
+def test_a_coverage_difference_within_its_noise_is_a_tie_that_macro_f1_decides() -> None:
+    """selection.ranked: coverage first, but within one standard error of the best it is a tie (the one-standard-
+    error rule, Breiman et al. 1984, from memory). The standard error is the binomial one; statsmodels'
+    normal-approximation interval (proportion_confint, method="normal") is z times it."""
+    from triage.core.selection import coverage_noise, ranked
+
+    n = 9000
+    lo, hi = proportion_confint(126, n, alpha=0.05, method="normal")
+    assert coverage_noise(126 / n, n) == pytest.approx((hi - lo) / 2 / 1.959963984540054, rel=1e-9)
+    # (coverage, macro-F1, log loss): 1.3% against 1.4% on 9,000 items is within noise (one SE is 0.12 points)
+    layer, plain = (0.013, 0.302, 2.0), (0.014, 0.235, 1.9)
+    assert ranked([plain, layer], lambda f: f, n)[0] is layer
+    # 0.0% against 1.5% is not: coverage decides
+    poor = (0.0, 0.9, 1.0)
+    assert ranked([poor, plain], lambda f: f, n)[0] is plain
+    # with many rows: the ones near the best by macro-F1, then the rest by coverage
+    rows = [(0.50, 0.70, 1.0), (0.499, 0.75, 1.0), (0.40, 0.99, 1.0), (0.45, 0.60, 1.0)]
+    assert ranked(rows, lambda f: f, 10_000) == [rows[1], rows[0], rows[3], rows[2]]

@@ -277,11 +277,15 @@ def test_grid_covers_weights_and_transforms_and_adopt_writes_them(small_ws) -> N
     assert all(0 <= r.accuracy <= 1 and 0 <= r.coverage <= 1 and np.isfinite(r.log_loss) for r in rows)
     json.dumps([r.to_dict() for r in rows])
 
-    # one criterion, the one train uses (selection.rank_key): coverage at the targets, then macro-F1, log loss
-    from triage.core.selection import rank_key
+    # one criterion, the one train uses (selection.ranked): coverage at the targets within one standard error
+    # of the best, then macro-F1, log loss
+    from triage.core.selection import ranked
 
-    ranks = [rank_key(r.coverage, r.macro_f1, r.log_loss) for r in rows]
-    assert ranks == sorted(ranks, reverse=True)
+    def figures(r):
+        return (r.coverage, r.macro_f1, r.log_loss)
+
+    again = ranked(list(reversed(rows)), figures, len(small_ws.store.labelled_items()))
+    assert [figures(r) for r in rows] == [figures(r) for r in again]
 
     chosen = next(r for r in rows if r.transforms and r.text_weights["subject"] == 3.0)
     before = small_ws.config.model.text_model

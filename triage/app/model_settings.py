@@ -20,7 +20,7 @@ from triage.core.routing import RoutingPolicy
 from triage.core.selection import (
     StackedScores,
     coverage_at_targets,
-    rank_key,
+    ranked,
     score_jll,
 )
 
@@ -64,21 +64,22 @@ def fit_policy(config: Config, oof: np.ndarray, y: np.ndarray,
 
 
 def keep_layer_if_better(ws: Workspace, stacked: StackedScores, labels: Sequence[str]) -> StackedScores:
-    """The layer on or off by the one selection criterion (selection.rank_key) on the same out-of-fold items:
-    it stays only if it does not rank below the naive Bayes scores alone. `score_layer = true` keeps it whatever
+    """The layer on or off by the one selection criterion (selection.ranked) on the same out-of-fold items:
+    it stays unless the naive Bayes scores alone rank first (a coverage within one standard error is a tie,
+    decided by macro-F1). `score_layer = true` keeps it whatever
     the ranking (the user asked for it; only too little data turns it off then)."""
     if stacked.layer is None or stacked.base is None or ws.config.model.score_layer is True:
         return stacked
     rules = cutoff_rules(ws.config, stacked.queues)
-    ranks = []
+    figures = []
     for scores in (stacked.scores, stacked.base):
         _acc, f1, ll = score_jll(scores, stacked.queues, labels)
-        ranks.append((rank_key(coverage_at_targets(scores, stacked.queues, labels, rules), f1, ll), f1))
-    if ranks[0][0] >= ranks[1][0]:
+        figures.append((coverage_at_targets(scores, stacked.queues, labels, rules), f1, ll))
+    with_layer, without = figures
+    if ranked([with_layer, without], lambda f: f, len(labels))[0] is with_layer:
         return stacked
-    (with_layer, f1_l), (without, f1_b) = ranks
-    why = (f"off: on the out-of-fold items it auto-routed {with_layer[0]:.1%} (macro-F1 {f1_l:.3f}) against "
-           f"{without[0]:.1%} (macro-F1 {f1_b:.3f}) without it")
+    why = (f"off: on the out-of-fold items it auto-routed {with_layer[0]:.1%} (macro-F1 {with_layer[1]:.3f}) "
+           f"against {without[0]:.1%} (macro-F1 {without[1]:.3f}) without it")
     return StackedScores(stacked.base, stacked.queues, None, why, stacked.base)
 
 

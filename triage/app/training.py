@@ -120,11 +120,11 @@ def _fit(ws: Workspace, engine: Engine, recs: list[ItemRecord], say: Progress,
             older_labels = labels[: len(older)]
             jlls = history.out_of_fold_jll(specs, stratified_folds(older_labels, 3), before_each=step)
             queues = history.queues("older")
-            rules = cutoff_rules(ws.config, queues)  # one criterion with tune: selection.rank_key
+            rules = cutoff_rules(ws.config, queues)  # one criterion with tune: selection.ranked
             scores = [SettingScore(spec, *score_jll(jll, queues, older_labels),
                                    coverage_at_targets(jll, queues, older_labels, rules))
                       for spec, jll in zip(specs, jlls, strict=True)]
-            best = best_setting(scores)
+            best = best_setting(scores, len(older_labels))
             selection = [s.to_dict() for s in scores]
             base = best.spec
         check()

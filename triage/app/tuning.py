@@ -24,7 +24,7 @@ from triage.core.encode import EncodedBatch, Encoder
 from triage.core.metrics import captured_share, conditional_mutual_information, lift_table
 from triage.core.model import TEXT_MODELS
 from triage.core.schema import FieldRole, FieldSpec, Schema
-from triage.core.selection import out_of_fold_jll, rank_key, score_jll
+from triage.core.selection import out_of_fold_jll, ranked, score_jll
 from triage.core.tokens import Tokenizer, is_bigram
 
 if TYPE_CHECKING:
@@ -104,8 +104,9 @@ def run_grid(ws: Workspace, folds: int = 5, progress: Any = None) -> list[GridRo
         rows.append(GridRow(model, alpha, bigrams, use_fields, dict(weights), transforms, acc, f1, ll,
                             _coverage(ws, jll, queues, labels)))
     say("done", 1.0)
-    # the one criterion train uses too (selection.rank_key): coverage at the targets, macro-F1, log loss
-    return sorted(rows, key=lambda r: rank_key(r.coverage, r.macro_f1, r.log_loss), reverse=True)
+    # the one criterion train uses too (selection.ranked): coverage at the targets within its noise, macro-F1,
+    # log loss
+    return ranked(rows, lambda r: (r.coverage, r.macro_f1, r.log_loss), len(labels))
 
 
 # the first text field's weights tried (the other text fields at 1); the transforms go with these text models

@@ -11,6 +11,7 @@ from __future__ import annotations
 import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
+from typing import TypeVar
 
 import numpy as np
 from sklearn.metrics import accuracy_score, f1_score
@@ -20,6 +21,8 @@ from triage.core.encode import EncodedBatch, Encoder
 from triage.core.measure import CutoffRules, fit_policy
 from triage.core.model import TEXT_MODELS, ModelSpec, NaiveBayes, log_posterior
 from triage.core.stack import ScoreLayer, too_small
+
+T = TypeVar("T")
 
 
 def subset(batch: EncodedBatch, rows: np.ndarray) -> EncodedBatch:
@@ -128,6 +131,31 @@ def rank_key(coverage: float, macro_f1: float, log_loss: float) -> tuple[float, 
     return (round(coverage, 6), round(macro_f1, 6), -round(log_loss, 9))
 
 
+def coverage_noise(coverage: float, n_items: int) -> float:
+    """One standard error of an out-of-fold coverage measured on `n_items` items (binomial: sqrt(c (1 - c) / n))."""
+    return float(np.sqrt(max(coverage * (1.0 - coverage), 0.0) / max(n_items, 1)))
+
+
+def ranked(rows: Sequence[T], figures: Callable[[T], tuple[float, float, float]], n_items: int) -> list[T]:
+    """Rows best first by the one criterion `train`, `tune` and the score layer's on/off share.
+
+    `figures(row)` gives (coverage at the targets, macro-F1, log loss) on `n_items` out-of-fold items. Coverage
+    comes first (the promise kept, the most work taken off the desk), but a coverage within one standard error
+    of the best is a tie, not a win: among those rows the higher macro-F1 (then the lower log loss) leads, and the
+    rest follow by `rank_key`. This is the one-standard-error rule of model selection (Breiman, Friedman, Olshen
+    and Stone 1984, Classification and Regression Trees, from memory), read here as "a difference the noise can
+    make decides nothing". The sort is stable: of two rows equal on every figure the earlier stays first."""
+    if not rows:
+        return []
+    best = max(figures(r)[0] for r in rows)
+    floor = best - coverage_noise(best, n_items)
+    near = [r for r in rows if figures(r)[0] >= floor]
+    rest = [r for r in rows if figures(r)[0] < floor]
+    near.sort(key=lambda r: (round(figures(r)[1], 6), -round(figures(r)[2], 9)), reverse=True)
+    rest.sort(key=lambda r: rank_key(*figures(r)), reverse=True)
+    return near + rest
+
+
 def coverage_at_targets(jll: np.ndarray, queues: Sequence[str], labels: Sequence[str],
                         rules: CutoffRules) -> float:
     """The share of out-of-fold items auto-routed at the targets, calibrated and cut exactly as training does
@@ -175,10 +203,10 @@ def select(encoder: Encoder, batch: EncodedBatch, labels: Sequence[str], specs: 
         acc, f1, ll = score_jll(jll, queues, labels)
         cov = coverage_at_targets(jll, queues, labels, rules) if rules is not None else 0.0
         scores.append(SettingScore(spec, acc, f1, ll, cov))
-    return best_setting(scores), scores
+    return best_setting(scores, len(labels)), scores
 
 
-def best_setting(scores: Sequence[SettingScore]) -> SettingScore:
-    """The best setting by `rank_key` (coverage at the targets, then macro-F1, then log loss): the one rule
-    every grid uses (coverage ties at 0 where it was not measured)."""
-    return max(scores, key=lambda s: rank_key(s.coverage, s.macro_f1, s.log_loss))
+def best_setting(scores: Sequence[SettingScore], n_items: int) -> SettingScore:
+    """The best setting by `ranked` (coverage at the targets within its noise, then macro-F1, then log loss): the
+    one rule every grid uses (coverage ties at 0 where it was not measured)."""
+    return ranked(scores, lambda s: (s.coverage, s.macro_f1, s.log_loss), n_items)[0]
