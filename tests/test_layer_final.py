@@ -59,3 +59,31 @@ def test_the_kept_layer_is_the_measured_one(fortunes_workspace: Path) -> None:
     # the layer was fitted on the measured (older) items only: its item count says so
     assert model.layer_.n_items == info["items"] < len(recs)
     assert np.isfinite(model.layer_.weights).all()
+
+
+def test_word_pairs_on_auto_are_measured_on_the_best_setting_and_kept_only_if_they_rank_first(
+        fortunes_workspace: Path) -> None:
+    """bigrams = "auto" (the default init writes): the best of the words-only grid is measured once more with word
+    pairs on the same folds, and the model keeps whichever ranks first by the one rule (selection.ranked)."""
+    from triage.core.selection import ranked
+    from triage.core.tokens import is_bigram
+
+    with Workspace.open(fortunes_workspace) as ws:
+        assert ws.config.model.bigrams == "auto"
+        recs = labelled(ws)
+        model, meas, selection, base = _fit(ws, InProcessEngine(), recs, lambda s, f: None, lambda: None)
+        n_older = meas.split["train_items"]
+    words = [s for s in selection if not s["spec"]["bigrams"]]
+    pairs = [s for s in selection if s["spec"]["bigrams"]]
+    assert len(pairs) == 1 and len(words) == len(selection) - 1
+
+    def figures(s):
+        return (s["coverage"], s["macro_f1"], s["log_loss"])
+
+    best_words = ranked(words, figures, n_older)[0]
+    assert {k: v for k, v in pairs[0]["spec"].items() if k != "bigrams"} == \
+        {k: v for k, v in best_words["spec"].items() if k != "bigrams"}
+    winner = ranked(selection, figures, n_older)[0]
+    assert base.bigrams == winner["spec"]["bigrams"] and model.spec.bigrams == base.bigrams
+    # the model's vocabulary has word pairs exactly when they were kept
+    assert any(is_bigram(t) for t in model.encoder.terms_) == base.bigrams

@@ -44,7 +44,8 @@ class ModelSettings:
     alpha_text: float | str = "auto"
     alpha_fields: float = 1.0
     prior: str = "fitted"  # fitted | uniform
-    bigrams: bool = False
+    # word pairs next to the words: "auto" = `train` measures the best setting with them too and keeps the better
+    bigrams: bool | str = "auto"
     min_count: int = 1
     max_vocab: int = 100_000
     max_token_chars: int = 40
@@ -249,7 +250,8 @@ def config_from_dict(data: dict[str, Any], path: Path | str = "triage.toml", tex
                                        or not isinstance(model.alpha_text, int | float) or model.alpha_text <= 0):
         raise _fail(path, "model.alpha_text", f"must be 'auto' or a number > 0, not {model.alpha_text!r}")
     _number(path, "model.alpha_fields", model.alpha_fields, lo=0, hi=1e6, lo_open=True)
-    _flag(path, "model.bigrams", model.bigrams)
+    if model.bigrams != "auto":
+        _flag(path, "model.bigrams", model.bigrams)
     for key in ("min_count", "max_vocab", "max_token_chars"):
         v = getattr(model, key)
         if isinstance(v, bool) or not isinstance(v, int) or v < 1:

@@ -41,7 +41,7 @@ def spec_from_config(config: Config, **overrides: Any) -> ModelSpec:
     spec = ModelSpec(
         text_model="multinomial" if m.text_model == "auto" else m.text_model,
         alpha_text=1.0 if m.alpha_text == "auto" else float(m.alpha_text),
-        alpha_fields=float(m.alpha_fields), prior=m.prior, bigrams=bool(m.bigrams), min_count=int(m.min_count),
+        alpha_fields=float(m.alpha_fields), prior=m.prior, bigrams=m.bigrams is True, min_count=int(m.min_count),
         max_vocab=int(m.max_vocab) if m.max_vocab else None, max_token_chars=int(m.max_token_chars),
         tf_log=bool(m.tf_log), idf=bool(m.idf), length_norm=bool(m.length_norm),
         score_layer=m.score_layer is not False,  # "auto": on, unless the data is too small (stack.too_small)

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import time
 from collections.abc import Callable, Sequence
+from dataclasses import replace
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -105,7 +106,7 @@ def _fit(ws: Workspace, engine: Engine, recs: list[ItemRecord], say: Progress,
     history = History(engine, ws.config.schema, base, [r.fields for r in ordered], labels, n_older=len(older))
     try:
         m = ws.config.model
-        if m.text_model == "auto" or m.alpha_text == "auto":
+        if m.text_model == "auto" or m.alpha_text == "auto" or m.bigrams == "auto":
             specs = [s for s in quick_grid(base)
                      if (m.text_model == "auto" or s.text_model == m.text_model)
                      and (m.alpha_text == "auto" or s.alpha_text == float(m.alpha_text))]
@@ -125,6 +126,28 @@ def _fit(ws: Workspace, engine: Engine, recs: list[ItemRecord], say: Progress,
                                    coverage_at_targets(jll, queues, older_labels, rules))
                       for spec, jll in zip(specs, jlls, strict=True)]
             best = best_setting(scores, len(older_labels))
+            if m.bigrams == "auto":
+                # the best setting once more with word pairs (a second tokenisation; the grid stays on words):
+                # kept only if it ranks first by the same rule
+                check()
+                say(f"setting {len(specs) + 1}/{len(specs) + 1}: {best.spec.text_model}, alpha "
+                    f"{best.spec.alpha_text:g}, with word pairs", 0.1)
+                paired = replace(best.spec, bigrams=True)
+                with_pairs = History(engine, ws.config.schema, paired, [r.fields for r in ordered], labels,
+                                     n_older=len(older))
+                try:
+                    jll = with_pairs.out_of_fold_jll([paired], stratified_folds(older_labels, 3))[0]
+                    scores.append(SettingScore(paired, *score_jll(jll, queues, older_labels),
+                                               coverage_at_targets(jll, queues, older_labels, rules)))
+                except BaseException:
+                    with_pairs.close()
+                    raise
+                best = best_setting(scores, len(older_labels))
+                if best.spec.bigrams:
+                    history.close()
+                    history = with_pairs
+                else:
+                    with_pairs.close()
             selection = [s.to_dict() for s in scores]
             base = best.spec
         check()

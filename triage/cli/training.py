@@ -50,9 +50,11 @@ def cmd_train(args: argparse.Namespace) -> int:
             err.print(f"warning: {w}", markup=False, soft_wrap=True)
         s = meas.spec
         out.print(f"Trained model version [b]{rep.version.version}[/] on {rep.n_items} items in {rep.seconds:.1f} s: "
-                  f"{s.text_model} text (alpha {s.alpha_text}), fields alpha {s.alpha_fields}.")
+                  f"{s.text_model} text (alpha {s.alpha_text}{', with word pairs' if s.bigrams else ''}), "
+                  f"fields alpha {s.alpha_fields}.")
         if rep.selection:
-            out.print(f"Chosen by 3-fold cross-validation among {len(rep.selection)} settings (macro-F1).")
+            out.print(f"Chosen by 3-fold cross-validation among {len(rep.selection)} settings (the most auto-routed "
+                      "at the targets; within the noise of that, the best macro-F1).")
         c = meas.calibration
         hold = c.get("holdout") or c
         out.print(f"Calibration: temperature {c['temperature']:.2f}"
