@@ -36,7 +36,8 @@ def test_an_auto_routed_item_is_corrected_from_incoming(workspace_path: Path, re
         for ch in other[:4]:  # type-ahead: the first letters find the queue
             await pilot.press(ch)
         await pilot.pause()
-        assert picker.query_one("#queue-options").highlighted == picker.queues.index(other)
+        ol = picker.query_one("#queue-options")
+        assert ol.get_option_at_index(ol.highlighted).id == other
         await pilot.press("enter")
         await settle(app, pilot)
         assert ws.store.get_item(row.item_id).label == other

@@ -289,8 +289,8 @@ class ConfirmScreen(ModalScreen[bool]):
 class QueuePicker(ModalScreen[str | None]):
     """Choose the queue to send an item to; dismisses with the queue, or None when left with escape.
 
-    Typing picks as you go: the letters typed so far highlight the first queue that starts with them (else
-    the first that contains them); backspace takes one back.
+    Typing filters as you go: the list keeps only the queues with the letters typed so far (those that start
+    with them first, then those that contain them), and the first is highlighted; backspace takes one back.
     """
 
     BINDINGS = [Binding("escape", "leave", "Back", id="picker.back", tooltip="Send nowhere")]
@@ -302,17 +302,18 @@ class QueuePicker(ModalScreen[str | None]):
         self.suggested = suggested
         self.never = set(never_auto)
         self.typed = ""
+        self.shown = list(self.queues)  # the queues on the list now (all, or those the typed letters match)
+
+    def option(self, q: str) -> Option:
+        note = "  ← suggested" if q == self.suggested else ""
+        note += "  (never auto-routed)" if q in self.never else ""
+        return Option(f"{q}{note}", id=q)
 
     def compose(self) -> ComposeResult:
         with Vertical(id="dialog") as box:
             box.border_title = f"send {self.item_id} to"
             yield Label("type to find a queue · enter picks · escape leaves", id="picker-typed")
-            options = []
-            for q in self.queues:
-                note = "  ← suggested" if q == self.suggested else ""
-                note += "  (never auto-routed)" if q in self.never else ""
-                options.append(Option(f"{q}{note}", id=q))
-            yield OptionList(*options, id="queue-options")
+            yield OptionList(*(self.option(q) for q in self.queues), id="queue-options")
 
     def on_mount(self) -> None:
         ol = self.query_one(OptionList)
@@ -320,14 +321,11 @@ class QueuePicker(ModalScreen[str | None]):
         if self.suggested in self.queues:
             ol.highlighted = self.queues.index(self.suggested)
 
-    def match(self, typed: str) -> int | None:
-        """The index of the queue the typed letters point at (prefix first, then anywhere), or None."""
+    def matches(self, typed: str) -> list[str]:
+        """The queues the typed letters match: those starting with them first, then those containing them."""
         t = typed.casefold()
-        for test in (lambda q: q.casefold().startswith(t), lambda q: t in q.casefold()):
-            for i, q in enumerate(self.queues):
-                if test(q):
-                    return i
-        return None
+        first = [q for q in self.queues if q.casefold().startswith(t)]
+        return first + [q for q in self.queues if t in q.casefold() and q not in first]
 
     def on_key(self, event: events.Key) -> None:
         if event.key == "backspace":
@@ -338,14 +336,18 @@ class QueuePicker(ModalScreen[str | None]):
             return
         event.stop()
         event.prevent_default()
-        i = self.match(self.typed) if self.typed else None
+        found = self.matches(self.typed)
         label = self.query_one("#picker-typed", Label)
-        if self.typed and i is None:
+        if not found:  # the list stays as it was, so enter still picks something shown
             label.update(f"typed: {self.typed}  (no queue has it; backspace)")
             return
-        label.update(f"typed: {self.typed}" if self.typed else "type to find a queue · enter picks · escape leaves")
-        if i is not None:
-            self.query_one(OptionList).highlighted = i
+        label.update(f"typed: {self.typed} · {len(found)} of {len(self.queues)} queues" if self.typed
+                     else "type to find a queue · enter picks · escape leaves")
+        self.shown = found
+        ol = self.query_one(OptionList)
+        ol.clear_options()
+        ol.add_options([self.option(q) for q in found])
+        ol.highlighted = found.index(self.suggested) if not self.typed and self.suggested in found else 0
 
     def on_option_list_option_selected(self, event: OptionList.OptionSelected) -> None:
         self.dismiss(event.option.id)

@@ -47,7 +47,7 @@ class OverviewView(View):
         never = ", ".join(o["never_auto"]) or "none"
         self.query_one("#overview-warning", Static).update(Text(
             f"! Items predicted for a never-auto queue ({never}), or mentioning one of its watch words, are "
-            "always held for a person, whatever the confidence.", style="bold yellow"))
+            "never auto-routed or closed: they always reach a person, whatever the confidence.", style="bold yellow"))
         m = Table.grid(padding=(0, 2))
         m.add_column(style="dim")
         m.add_column(style="bold")

@@ -57,6 +57,7 @@ class ReviewView(View):
         with Horizontal(classes="filters"):
             yield Select([], prompt="any queue", id="review-queue", compact=True)
             yield Input(placeholder="/ search id or reason, enter applies", id="review-search", compact=True)
+        yield Label(id="review-safety")
         yield Label("building the work order…", id="review-status")
         with Container(classes="split"):
             yield DataTable(id="review-table", cursor_type="row", zebra_stripes=True)
@@ -70,6 +71,12 @@ class ReviewView(View):
         t.add_column("conf.", key="conf")
         t.add_column("label", key="label")
         t.add_column("why (safety first, then closest to a decision)", key="why")
+        never = sorted(self.ws.config.never_auto())
+        safety = self.query_one("#review-safety", Label)
+        safety.display = bool(never)
+        safety.update(Text(
+            f"! {', '.join(never)} {'is' if len(never) == 1 else 'are'} never auto-routed or closed: a person "
+            "decides each item, first here" if never else "", style="bold yellow"))
         self.reload()
 
     def reload(self) -> None:
