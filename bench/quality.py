@@ -221,7 +221,7 @@ def run_triage(rows: list[dict[str, str]], parts: tuple[np.ndarray, ...], label:
     report = json.loads(_triage("train", "-w", str(ws), "--json", cwd=tmp))
     t_train = time.perf_counter() - t0
     spec = report["spec"]
-    note = f"{spec['text_model']} a={spec['alpha_text']:g}"
+    note = f"{spec['text_model']} a={spec['alpha_text']:g}" + (" word pairs" if spec.get("bigrams") else "")
     out = [Result("triage defaults", *triage_figures(ws, test_csv, truth, queues), t_train, note)]
     info: dict[str, object] = {"train_seconds": t_train, "config": (ws / "triage.toml").read_text(encoding="utf-8")}
     layer = report["calibration"].get("score_layer") or {}
