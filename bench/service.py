@@ -169,16 +169,23 @@ def health_loop(url: str, n: int, cap_s: float) -> list[float]:
 
 
 def paced(url: str, items: list[dict[str, Any]], rate: float, n: int, workers: int = 16) -> tuple[list[float], int]:
-    """Open loop: request i is due at start + i/rate; latency counts from when it was due."""
+    """Open loop: request i is due at start + i/rate; latency counts from when it was due.
+
+    The clock starts once every client has its connection open (a barrier): creating `workers` httpx clients
+    takes longer than a fixed head start on a busy 2-core machine, and the first requests would otherwise be
+    late by the clients' own setup, not by the server."""
     lock = threading.Lock()
     counter = iter(range(n))
     latencies: list[float] = []
     errors = [0]
-    start = time.perf_counter() + 0.2
+    begin: list[float] = []
+    ready = threading.Barrier(workers + 1, action=lambda: begin.append(time.perf_counter() + 0.05))
 
     def run() -> None:
         with httpx.Client(base_url=url, timeout=30) as c:
             c.get("/v1/health")
+            ready.wait()
+            start = begin[0]
             mine: list[float] = []
             while True:
                 with lock:
@@ -199,6 +206,7 @@ def paced(url: str, items: list[dict[str, Any]], rate: float, n: int, workers: i
     threads = [threading.Thread(target=run) for _ in range(workers)]
     for t in threads:
         t.start()
+    ready.wait()
     for t in threads:
         t.join()
     return latencies, errors[0]

@@ -22,6 +22,7 @@ from triage.core.routing import RoutingPolicy
 from triage.ingest import describe_similar, read_items, similar_labels
 from triage.records import ItemRecord
 from triage.store import ModelVersion, Store
+from triage.store.checkpoints import BackgroundCheckpoints
 
 CONFIG_NAME = "triage.toml"
 DB_NAME = "triage.db"
@@ -87,6 +88,12 @@ class Workspace:
 
     def close(self) -> None:
         self.store.close()
+
+    def checkpoint_in_background(self) -> BackgroundCheckpoints | None:
+        """For a long-running writer (the service): the store's log checkpoints on a thread of its own instead of
+        inside a commit (see triage.store.checkpoints); call `stop()` on the result before `close`. None for a
+        read-only workspace."""
+        return None if self.store.read_only else BackgroundCheckpoints(self.store)
 
     def __enter__(self) -> Workspace:
         return self

@@ -60,9 +60,12 @@ def create_app(workspace: Path | str, *, token: str | None = None, max_body_byte
 
     @asynccontextmanager
     async def lifespan(app: Starlette) -> Any:
+        checkpoints = ws.checkpoint_in_background()  # no request waits for a checkpoint of the store's log
         try:
             yield
         finally:
+            if checkpoints is not None:
+                checkpoints.stop()
             ws.close()
 
     routes = [

@@ -113,6 +113,12 @@ class StoreBase:
         row = self._one(f"PRAGMA {name}")
         return None if row is None else row[0]
 
+    def set_wal_autocheckpoint(self, pages: int) -> None:
+        """Pages of log after which a commit on this connection checkpoints (0: never; see store.checkpoints)."""
+        with self._lock:
+            self._check_open()
+            self._conn.execute(f"PRAGMA wal_autocheckpoint = {int(pages)}")
+
     @contextmanager
     def transaction(self, *, durable: bool = True) -> Iterator[Self]:
         """One BEGIN IMMEDIATE ... COMMIT; any exception rolls everything back. Nested use joins the outer one.
