@@ -157,9 +157,8 @@ class Workspace:
         """Pick up a model version activated by another process (training, rollback); True if it changed."""
         with self.lock:  # read and swap under the lock, so a correction cannot slip in between
             self._reload_config_if_changed()
-            mv = self.store.active_model()
+            target = self.store.active_version_number()
             current = self._active.version.version if self._active else None
-            target = mv.version if mv else None
             if target == current:
                 if self.load_problem is not None and self.load_problem.version != target:
                     self.load_problem = None  # the stand-in was made the active version (a rollback)

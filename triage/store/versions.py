@@ -71,6 +71,12 @@ class VersionTable(StoreBase):
         rows = self._all(f"SELECT {VERSION_COLS} FROM model_versions WHERE active = 1")
         return self._version(rows[0]) if rows else None
 
+    def active_version_number(self) -> int | None:
+        """The active model version's number alone (None before the first one): what a per-request check for a
+        newly activated version needs, without reading and resolving the version's config and scorecard."""
+        row = self._one("SELECT version FROM model_versions WHERE active = 1")
+        return None if row is None else int(row[0])
+
     def get_model_version(self, version: int) -> ModelVersion:
         """One model version; UnknownVersionError when there is none."""
         with self._lock:
