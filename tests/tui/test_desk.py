@@ -140,3 +140,41 @@ def test_the_configured_reviewer_decides_without_being_asked(workspace_path: Pat
         assert [(c.item_id, c.by) for c in app.ws.store.corrections()] == [(entry.item.item_id, "Cleo Config")]
 
     run(go, workspace_path)
+
+
+def test_accepting_a_stored_labels_disagreement_asks_first(workspace_path: Path) -> None:
+    """`a` on a stored label the model disagrees with would rewrite that item's history: a yes/no question
+    comes first, no leaves the label and the model versions as they were, yes relabels it."""
+    from triage.app.work_order import Group
+    from triage.tui.widgets import ConfirmScreen
+
+    async def go(app: TriageApp, pilot) -> None:  # noqa: ANN001
+        ws = app.ws
+        await pilot.press("5")
+        await settle(app, pilot)
+        await pilot.press("d")  # the stored labels the model disagrees with
+        await settle(app, pilot)
+        rv = app.query_one(ReviewView)
+        table = app.query_one("#review-table", DataTable)
+        entry = next(e for e in rv.entries if e.group is Group.DISAGREES)
+        table.move_cursor(row=[str(k.value) for k in table.rows].index(entry.item.item_id))
+        await pilot.pause()
+        old = ws.store.get_item(entry.item.item_id).label
+        assert old is not None and old != entry.item.suggested
+        versions = [v.version for v in ws.models()]
+        await pilot.press("a")
+        await pilot.pause()
+        assert isinstance(app.screen, ConfirmScreen)
+        assert f"stored as {old}. Relabel it as {entry.item.suggested}?" in app.screen.question
+        await pilot.press("n")
+        await settle(app, pilot)
+        assert ws.store.get_item(entry.item.item_id).label == old
+        assert [v.version for v in ws.models()] == versions and not ws.store.corrections()
+        await pilot.press("a")
+        await pilot.pause()
+        await pilot.press("y")
+        await settle(app, pilot)
+        assert ws.store.get_item(entry.item.item_id).label == entry.item.suggested
+        assert len(ws.models()) == len(versions) + 1
+
+    run(go, workspace_path)

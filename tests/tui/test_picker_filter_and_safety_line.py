@@ -96,6 +96,6 @@ def test_review_and_overview_say_never_auto_items_always_reach_a_person(workspac
         await pilot.press("5")
         await settle(app, pilot)
         line = str(app.query_one("#review-safety", Label).render())
-        assert line == "! safety is never auto-routed or closed: a person decides each item, first here"
+        assert line == "! safety is never auto-routed or closed: a person decides every item"
 
     run(go, workspace_path)

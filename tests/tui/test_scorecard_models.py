@@ -43,6 +43,24 @@ def test_nothing_routed_reads_as_a_dash_and_a_queue_below_target_is_marked(works
     run(go, workspace_path)
 
 
+def test_at_80x24_the_marks_are_explained_on_screen(workspace_path: Path) -> None:
+    """The note column saying "below its target" is off screen at 80 columns: the summary says what ▼ and —
+    mean, beside the rows that carry them."""
+    async def go(app: TriageApp, pilot) -> None:  # noqa: ANN001
+        await pilot.press("3")
+        await settle(app, pilot)
+        text = "\n".join(screen_lines(app))
+        assert "below its target" not in text  # the note column does not fit
+        assert f"{BELOW} precision below the queue's target" in text
+        assert f"{NOTHING} nothing auto-routed, so no precision" in text
+        card = app.query_one(ScorecardView).card
+        below = [q.queue for q in card.per_queue if q.routed and q.target is not None and q.precision < q.target]
+        assert below and all(re.search(rf"^ +{q} .*{BELOW}", text, re.M) for q in below)
+        assert re.search(rf"^ +safety .*never auto +{NOTHING}", text, re.M)
+
+    run(go, workspace_path, size=(80, 24))
+
+
 def test_at_120x40_the_matrix_shows_and_the_queue_table_stays_after_scrolling(workspace_path: Path) -> None:
     async def go(app: TriageApp, pilot) -> None:  # noqa: ANN001
         await pilot.press("3")

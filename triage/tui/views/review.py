@@ -76,7 +76,7 @@ class ReviewView(View):
         safety.display = bool(never)
         safety.update(Text(
             f"! {', '.join(never)} {'is' if len(never) == 1 else 'are'} never auto-routed or closed: a person "
-            "decides each item, first here" if never else "", style="bold yellow"))
+            "decides every item" if never else "", style="bold yellow"))
         self.reload()
 
     def reload(self) -> None:

@@ -57,6 +57,15 @@ def queue_cells(qs: Any) -> list[str | Text]:  # a Scorecard's per-queue entry (
             Text(note, style="bold red" if below else "dim")]
 
 
+def legend_line(card: Scorecard) -> str:
+    """What the table's marks mean, for the marks it shows (on a narrow terminal the note column is off
+    screen, so the summary says it)."""
+    below = any(q.routed and q.target is not None and q.precision < q.target for q in card.per_queue)
+    nothing = any(not q.routed for q in card.per_queue)
+    return " · ".join([f"{BELOW} precision below the queue's target"] * below
+                      + [f"{NOTHING} nothing auto-routed, so no precision"] * nothing)
+
+
 class ScorecardView(View):
     """The workspace's own measurement (`Workspace.evaluate`, what `triage evaluate` prints): confusion matrix,
     per-queue figures, what-if cutoffs re-scored on the same test items (`Measurement.rescore`), a
@@ -283,6 +292,9 @@ class ScorecardView(View):
             if own and not self.changed:
                 s.append(f"\nat the active version's cutoffs (`triage evaluate` solves its own on these labels: "
                          f"they differ for {', '.join(own)})", style="dim")
+        legend = legend_line(card)
+        if legend:
+            s.append("\n" + legend, style="dim")
         summary.update(s)
         t = self.query_one("#queue-table", DataTable)
         row = t.cursor_row
