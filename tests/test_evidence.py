@@ -36,7 +36,7 @@ def test_iir_13_1_evidence_terms() -> None:
     w = _terms(ev)
     # IIR Example 13.1: P(c) = 3/4, P(not c) = 1/4; P(Chinese|c) = 3/7 vs 2/9 (three times),
     # P(Tokyo|c) = P(Japan|c) = 1/14 vs 2/9
-    assert w["queue size (prior)"] == pytest.approx(math.log(3), abs=1e-12)
+    assert w["base rate"] == pytest.approx(math.log(3), abs=1e-12)
     assert w["chinese"] == pytest.approx(3 * math.log((3 / 7) / (2 / 9)), abs=1e-12)
     assert w["tokyo"] == pytest.approx(math.log((1 / 14) / (2 / 9)), abs=1e-12)
     assert w["japan"] == pytest.approx(math.log((1 / 14) / (2 / 9)), abs=1e-12)
@@ -44,7 +44,7 @@ def test_iir_13_1_evidence_terms() -> None:
     gap = math.log((3 / 4 * (3 / 7) ** 3 * (1 / 14) ** 2) / (1 / 4 * (2 / 9) ** 5))
     assert ev.gap == pytest.approx(gap, abs=1e-12)
     assert ev.total() == pytest.approx(gap, abs=1e-12)
-    assert [t.feature for t in ev.for_top(2)] == ["chinese", "queue size (prior)"]
+    assert [t.feature for t in ev.for_top(2)] == ["chinese", "base rate"]
     assert {t.feature for t in ev.against_top()} == {"tokyo", "japan"}
 
 
@@ -55,7 +55,7 @@ def test_iir_13_2_evidence_terms_include_absent_words() -> None:
     w = _terms(ev)
     # IIR Example 13.2, with the roles turned round (the top queue is "not China" now):
     # P(Chinese) 2/3 vs 4/5, P(Japan) = P(Tokyo) 2/3 vs 1/5, absent Beijing/Shanghai/Macao (1-1/3) vs (1-2/5)
-    assert w["queue size (prior)"] == pytest.approx(math.log(1 / 3), abs=1e-12)
+    assert w["base rate"] == pytest.approx(math.log(1 / 3), abs=1e-12)
     assert w["chinese"] == pytest.approx(math.log((2 / 3) / (4 / 5)), abs=1e-12)
     assert w["tokyo"] == pytest.approx(math.log((2 / 3) / (1 / 5)), abs=1e-12)
     for t in ("beijing", "shanghai", "macao"):
@@ -88,7 +88,7 @@ def test_mitchell_field_evidence() -> None:
     # Mitchell 6.9.1: P(strong|no) = 3/5, P(strong|yes) = 3/9; the scores .0206 vs .0053
     assert w["wind = strong"] == pytest.approx(math.log((3 / 5) / (3 / 9)), abs=1e-12)
     assert w["outlook = sunny"] == pytest.approx(math.log((3 / 5) / (2 / 9)), abs=1e-12)
-    assert w["queue size (prior)"] == pytest.approx(math.log(5 / 9), abs=1e-12)
+    assert w["base rate"] == pytest.approx(math.log(5 / 9), abs=1e-12)
     assert ev.gap == pytest.approx(math.log(0.0206 / 0.0053), abs=0.01)
     assert ev.total() == pytest.approx(ev.gap, abs=1e-12)
 

@@ -3,12 +3,11 @@
 from __future__ import annotations
 
 import argparse
-import json
 
 from triage.app import Workspace, WorkspaceError
 from triage.app.corrections import reviewer
 from triage.cli.output import emit_json, open_workspace, out, pct
-from triage.cli.render import render_models
+from triage.cli.render import render_models, render_overview
 
 
 def who(args: argparse.Namespace, ws: Workspace) -> str:
@@ -27,7 +26,7 @@ def cmd_correct(args: argparse.Namespace) -> int:
             d = rep.decision or {}
             out.print(f"Correction {rep.correction.id}: {args.id} {rep.before or '(unlabelled)'} -> {rep.after}, "
                       f"learned; model version {rep.version.version} is active. The item now scores "
-                      f"{d.get('suggested')} ({pct(d.get('confidence'))}).")
+                      f"{d.get('suggested') or '-'} ({pct(d.get('confidence'))}).")
     return 0
 
 
@@ -83,5 +82,5 @@ def cmd_overview(args: argparse.Namespace) -> int:
     if args.json:
         emit_json(data)
     else:
-        out.print_json(json.dumps(data))
+        render_overview(data)
     return 0

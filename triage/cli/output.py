@@ -24,6 +24,14 @@ SAFETY_NOTE = ("Queues marked never_auto (such as a safety queue) are never auto
                "one of its watch words.")
 
 
+# the words a support lead reads, one per idea, the same in every command (the README uses them too)
+MACRO_F1 = "average F1 with queues equal (macro-F1)"  # the first time in a table or a block of text
+AVG_F1 = "average F1"  # every time after that
+LOG_ODDS = ("the natural log of how many times likelier one queue is than the other; "
+            "+0.69 is twice as likely, +2.3 ten times")
+NATS = "nats, the natural-log unit of information; 0 = the two tell nothing about each other"
+
+
 out = Console(highlight=False)
 
 
@@ -59,6 +67,26 @@ def progress_bar(enabled: bool) -> tuple[Callable[[str, float], None], Callable[
 
 def pct(x: float | None) -> str:
     return "-" if x is None else f"{100 * x:.1f}%"
+
+
+def count(x: float | int | None) -> str:
+    """A count as people write it: 814, never 814.0 (counts may arrive as floats from stored JSON)."""
+    return "-" if x is None else f"{round(x):,}"
+
+
+def plain(v: object) -> str:
+    """A setting's value in words: "not set" for None, "on"/"off" for booleans, lists without brackets."""
+    if v is None:
+        return "not set"
+    if isinstance(v, bool):
+        return "on" if v else "off"
+    if isinstance(v, float):
+        return f"{v:g}"
+    if isinstance(v, list | tuple):
+        return ", ".join(plain(x) for x in v) or "none"
+    if isinstance(v, dict):
+        return ", ".join(f"{k} {plain(x)}" for k, x in v.items()) or "none"
+    return str(v)
 
 
 def open_workspace(args: argparse.Namespace, *, read_only: bool = False) -> Workspace:

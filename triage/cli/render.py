@@ -10,7 +10,7 @@ from rich.console import Console
 from rich.markup import escape
 from rich.table import Table
 
-from triage.cli.output import out, pct
+from triage.cli.output import AVG_F1, LOG_ODDS, MACRO_F1, count, out, pct
 
 
 def render_scorecard(card: dict[str, Any], console: Console = out) -> None:
@@ -26,28 +26,43 @@ def render_scorecard(card: dict[str, Any], console: Console = out) -> None:
         m.add_row(q, *[f"[bold]{v}[/]" if i == queues.index(q) else (f"{v}" if v / total < 0.05 else f"[yellow]{v}[/]")
                        for i, v in enumerate(row)])
     console.print(m)
-    t = Table(title="Per queue, at the cutoffs (auto: share of its items auto-routed)", title_justify="left",
-              box=box.SIMPLE_HEAD, pad_edge=False)
+    # one space between columns (the box's divider, no padding): the table fits 80 columns with every word whole
+    t = Table(title="Per queue, at the cutoffs", title_justify="left", box=box.SIMPLE_HEAD, show_edge=False,
+              padding=(0, 0))
     width = max((len(q["queue"]) for q in card["per_queue"]), default=5)
     t.add_column("queue", no_wrap=True, min_width=min(width, 20))
-    for col in ("target", "cutoff", "prec.", "recall", "F1", "n", "auto", "held"):
-        t.add_column(col, justify="right", no_wrap=True, min_width=6 if col in ("auto", "held", "prec.", "recall", "target") else None)
+    for col in ("target", "cutoff", "precision", "recall", "F1", "true\nitems", "auto-\nrouted", "held"):
+        t.add_column(col, justify="right", no_wrap=True, min_width={"F1": 5, "true\nitems": 5}.get(col, 6))
     for q in card["per_queue"]:
-        cutoff = "person" if q["never_auto"] else ("none" if q["cutoff"] is None else f"{q['cutoff']:.3f}")
-        t.add_row(q["queue"], pct(q["target"]), cutoff, pct(q["precision"]) if q["routed"] else "-",
-                  pct(q["recall"]) if q["support"] else "-", f"{q['f1']:.3f}" if q["support"] else "-", str(q["support"]), pct(q["coverage"]), pct(q["held_share"]))
+        t.add_row(q["queue"], pct(q["target"]), cutoff_word(q), precision_cell(q),
+                  pct(q["recall"]) if q["support"] else "-", f"{q['f1']:.3f}" if q["support"] else "-",
+                  count(q["support"]), pct(q["coverage"]) if q["routed"] + q["held"] else "-",
+                  pct(q["held_share"]) if q["routed"] + q["held"] else "-")
     console.print(t)
+    console.print("true items: test items truly of the queue. auto-routed, held: shares of the items suggested for "
+                  "the queue. precision: of the items auto-routed there, the share truly of it (- when nothing "
+                  "was auto-routed).", markup=False)
     console.print("cutoff: person = never auto-routed, a person sees every item; none = no cutoff meets the target "
-                  "yet, so nothing is auto-routed there")
+                  "yet, so nothing is auto-routed there", markup=False)
     untested = card.get("untested") or []
     if untested:
-        console.print(f"No test items for {', '.join(untested)}: left out of macro-F1 (its F1 cannot be measured "
-                      "on these items).", markup=False)
+        console.print(f"No test items for {', '.join(untested)}: left out of the {AVG_F1} (its F1 cannot be "
+                      "measured on these items).", markup=False)
     console.print(
-        f"items {card['n']}  accuracy (top queue) {pct(card['accuracy'])}  macro-F1 {card['macro_f1']:.3f}  "
-        f"auto-routed {pct(card['coverage'])} at precision {pct(card['auto_precision'])}  "
-        f"held for review {pct(card['held_share'])}"
+        f"{count(card['n'])} test items: top queue right for {pct(card['accuracy'])}; {MACRO_F1} "
+        f"{card['macro_f1']:.3f}; auto-routed {pct(card['coverage'])} at precision {pct(card['auto_precision'])}; "
+        f"held for review {pct(card['held_share'])}.", markup=False
     )
+
+
+def cutoff_word(q: dict[str, Any]) -> str:
+    """A queue's cutoff cell: person (never auto-routed), none (nothing meets the target) or the number."""
+    return "person" if q["never_auto"] else ("none" if q["cutoff"] is None else f"{q['cutoff']:.3f}")
+
+
+def precision_cell(q: dict[str, Any]) -> str:
+    """Precision at the cutoffs, or "-" when nothing was auto-routed there (0.0% would claim every one was wrong)."""
+    return pct(q["precision"]) if q["routed"] else "-"
 
 
 def render_decisions(decisions: Sequence[dict[str, Any]], console: Console = out, limit: int = 40) -> None:
@@ -69,15 +84,18 @@ def render_decisions(decisions: Sequence[dict[str, Any]], console: Console = out
 
 def render_explanation(x: dict[str, Any], console: Console = out) -> None:
     state = "held for review" if x["held"] else f"routed to {x['queue']}"
+    reason = str(x["reason"] or "")
     console.print(f"[b]{x['id']}[/]: {state}. Top queue [b]{x['suggested']}[/] ({pct(x['confidence'])}), "
-                  f"runner-up [b]{x['runner_up']}[/] ({pct(x['runner_up_confidence'])}). {x['reason']}.")
+                  f"runner-up [b]{x['runner_up']}[/] ({pct(x['runner_up_confidence'])}). "
+                  f"{escape(reason[:1].upper() + reason[1:])}.")
     if x.get("label"):
         console.print(f"Its current label: {x['label']}.")
     if x.get("stored_note"):
         console.print(f"Note: {x['stored_note']}.", markup=False)
-    console.print(f"The evidence below adds up to the log-odds gap {x['log_odds_gap']:.3f} between the two queues "
-                  f"(sum of all {x['n_terms']} terms: {x['terms_total']:.3f}); confidences are calibrated with "
-                  f"temperature {x['temperature']:.2f}.")
+    console.print(f"Each weight is in log-odds ({LOG_ODDS}). All {x['n_terms']} terms add up to "
+                  f"{x['terms_total']:.3f}: the log-odds margin of {x['suggested']} over {x['runner_up']} is "
+                  f"{x['log_odds_gap']:.3f}. Confidences are calibrated with temperature {x['temperature']:.2f}.",
+                  markup=False)
     for title, key in ((f"For {x['suggested']}", "for"), (f"For {x['runner_up']}", "against")):
         t = Table(title=title, title_justify="left")
         t.add_column("evidence")
@@ -85,7 +103,7 @@ def render_explanation(x: dict[str, Any], console: Console = out) -> None:
         t.add_column("")
         for e in x[key]:
             bar = "█" * min(30, int(round(abs(e["weight"]) * 4)))
-            name = e["feature"] + (f" ×{e['count']:g}" if e["kind"] == "token" and e["count"] != 1 else "")
+            name = e["feature"] + (f" ×{e['count']:.3g}" if e["kind"] == "token" and e["count"] != 1 else "")
             t.add_row(name, f"{e['weight']:+.3f}", f"[{'green' if e['weight'] > 0 else 'red'}]{bar}[/]")
         console.print(t)
     if x["unseen_words"]:
@@ -94,7 +112,7 @@ def render_explanation(x: dict[str, Any], console: Console = out) -> None:
 
 def render_models(versions: Sequence[Any], console: Console = out) -> None:
     t = Table(title="Model versions (* active)", title_justify="left", box=box.SIMPLE_HEAD, pad_edge=False)
-    for col in ("", "ver.", "kind", "created", "text model", "acc.", "auto"):
+    for col in ("", "ver.", "kind", "created", "text model", "accuracy", "auto-\nrouted"):
         t.add_column(col, no_wrap=True)
     t.add_column("note", ratio=1, min_width=18, overflow="fold")
     for v in versions:
@@ -111,12 +129,17 @@ def split_line(sp: dict[str, Any]) -> str:
     """How the scorecard's items were chosen, in words; never "None to None" when times are missing."""
     kind = sp.get("kind")
     if kind == "random":
-        return (f"No arrival times: trained on a random {sp['train_items']} items, scored on the other "
-                f"{sp['test_items']} (stratified by queue, seed {sp.get('seed', 0)}).")
-    base = f"Trained on the {sp['train_items']} oldest items, scored on the {sp['test_items']} newest"
+        return (f"No arrival times: trained on a random {count(sp['train_items'])} items, scored on the "
+                f"other {count(sp['test_items'])} (stratified by queue, seed {sp.get('seed', 0)}).")
+    base = f"Trained on the {count(sp['train_items'])} oldest items, scored on the {count(sp['test_items'])} newest"
     if sp.get("test_from") and sp.get("test_to"):
-        return f"{base} ({sp['test_from']} to {sp['test_to']})."
+        return f"{base} ({_when(sp['test_from'])} to {_when(sp['test_to'])})."
     return f"{base} (by id order: these items have no arrival times)."
+
+
+def _when(stamp: object) -> str:
+    """A stored time as people write it: 2026-07-29 09:56, not 2026-07-29T09:56:23."""
+    return str(stamp).replace("T", " ")[:16]
 
 
 def render_calibration(c: dict[str, Any], console: Console = out) -> None:
@@ -139,3 +162,51 @@ def render_calibration(c: dict[str, Any], console: Console = out) -> None:
         steps = f"raw {hold['ece_before']:.3f}, after temperature {hold['ece_temperature']:.3f}"
         steps += f", after isotonic {hold['ece_after']:.3f}" if iso.get("used") else ""
         console.print(f"On the scored items (not used for calibration): {steps}.")
+
+
+def render_overview(data: dict[str, Any], console: Console = out) -> None:
+    """The workspace at a glance, in sentences and one small table (the JSON form has every field)."""
+    def say(text: str) -> None:
+        console.print(text, markup=False)
+
+    say(f"Workspace {data['workspace']}: {count(data['items'])} items, {count(data['labelled'])} of them labelled.")
+    version = data.get("active_version")
+    if version is None:
+        say("No model is active yet: run `triage train`.")
+    else:
+        since = data.get("corrections_since_training") or 0
+        say(f"Active model version {version} ({data.get('text_model') or 'unknown'} text model); "
+            f"{count(since)} correction{'' if since == 1 else 's'} learned since it was trained.")
+    if data.get("model_problem"):
+        say(f"Problem: {data['model_problem']}")
+    if data.get("lost_versions"):
+        say("Versions whose model files are gone (they cannot be activated): "
+            + ", ".join(str(v) for v in data["lost_versions"]) + ".")
+    card = data.get("scorecard")
+    if card:
+        say(f"On its {count(card.get('n'))} test items: top queue right for {pct(card.get('accuracy'))}; "
+            f"{MACRO_F1} {_num(card.get('macro_f1'))}; auto-routed {pct(card.get('coverage'))} at precision "
+            f"{pct(card.get('auto_precision'))}; held for review {pct(card.get('held_share'))}.")
+    run = data.get("latest_batch") or {}
+    per_run = run.get("per_queue") or {}
+    t = Table(title="Queues", title_justify="left", box=box.SIMPLE_HEAD, pad_edge=False)
+    t.add_column("queue", no_wrap=True)
+    t.add_column("labelled items", justify="right")
+    t.add_column("in the latest run", justify="right")
+    t.add_column("")
+    never = set(data.get("never_auto") or [])
+    for q in sorted(set(data.get("queues") or {}) | set(per_run)):
+        t.add_row(q, count((data.get("queues") or {}).get(q, 0)), count(per_run[q]) if q in per_run else "-",
+                  "never auto-routed" if q in never else "")
+    console.print(t)
+    if run:
+        say(f"Latest routing run {run['id']} ({run.get('source')}): {count(run.get('routed'))} of "
+            f"{count(run.get('n'))} auto-routed, {count(run.get('held'))} held for review; unseen-word share "
+            f"{pct(run.get('unseen_word_share'))}, queue-mix shift (PSI) {_num(run.get('queue_mix_psi'))}"
+            f"{' (drift flagged)' if run.get('drift_flag') else ''}.")
+    else:
+        say("No routing run yet: `triage route FILE` decides a file of new items.")
+
+
+def _num(x: float | None) -> str:
+    return "-" if x is None else f"{x:.3f}"

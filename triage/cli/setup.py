@@ -9,7 +9,7 @@ from pathlib import Path
 from typing import Any
 
 from triage.app import Workspace, WorkspaceError
-from triage.cli.output import SAFETY_NOTE, emit_json, err, open_workspace, out, pct, progress_bar
+from triage.cli.output import SAFETY_NOTE, count, emit_json, err, open_workspace, out, pct, progress_bar
 from triage.cli.render import render_decisions, render_scorecard
 
 
@@ -71,12 +71,12 @@ def cmd_demo(args: argparse.Namespace) -> int:
     if args.json:
         emit_json(result)
         return 0
-    out.print(f"Demo workspace [b]{result['workspace']}[/] ({result['scenario']}): imported {result['imported']} "
+    out.print(f"Demo workspace [b]{result['workspace']}[/] ({result['scenario']}): imported {count(result['imported'])} "
               f"items, trained model version {result['version']}.")
     render_scorecard(result["scorecard"])
     render_decisions(result["decisions"], limit=15)
     b = result["batch"]
-    out.print(f"Incoming run: {b['routed']} of {b['n']} auto-routed, {b['held']} held for review; unseen-word "
+    out.print(f"Incoming run: {count(b['routed'])} of {count(b['n'])} auto-routed, {count(b['held'])} held for review; unseen-word "
               f"share {pct(b['unseen_word_share'])}, queue-mix PSI {b['queue_mix_psi']:.3f}"
               f"{' (drift flagged)' if b['drift_flag'] else ''}.")
     if "accuracy_on_incoming" in result:

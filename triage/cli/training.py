@@ -5,10 +5,24 @@ from __future__ import annotations
 import argparse
 from typing import Any
 
+from rich import box
 from rich.table import Table
 
 from triage.app import Workspace
-from triage.cli.output import SAFETY_NOTE, emit_json, err, open_workspace, out, pct, progress_bar
+from triage.cli.output import (
+    AVG_F1,
+    MACRO_F1,
+    NATS,
+    SAFETY_NOTE,
+    count,
+    emit_json,
+    err,
+    open_workspace,
+    out,
+    pct,
+    plain,
+    progress_bar,
+)
 from triage.cli.render import render_calibration, render_scorecard, split_line
 
 
@@ -49,12 +63,12 @@ def cmd_train(args: argparse.Namespace) -> int:
         for w in rep.warnings:
             err.print(f"warning: {w}", markup=False, soft_wrap=True)
         s = meas.spec
-        out.print(f"Trained model version [b]{rep.version.version}[/] on {rep.n_items} items in {rep.seconds:.1f} s: "
-                  f"{s.text_model} text (alpha {s.alpha_text}{', with word pairs' if s.bigrams else ''}), "
-                  f"fields alpha {s.alpha_fields}.")
+        out.print(f"Trained model version [b]{rep.version.version}[/] on {count(rep.n_items)} items in "
+                  f"{rep.seconds:.1f} s: {s.text_model} text (alpha {s.alpha_text}"
+                  f"{', with word pairs' if s.bigrams else ''}), fields alpha {s.alpha_fields}.")
         if rep.selection:
             out.print(f"Chosen by 3-fold cross-validation among {len(rep.selection)} settings (the most auto-routed "
-                      "at the targets; within the noise of that, the best macro-F1).")
+                      f"at the targets; within the noise of that, the best {MACRO_F1}).", markup=False)
         c = meas.calibration
         hold = c.get("holdout") or c
         out.print(f"Calibration: temperature {c['temperature']:.2f}"
@@ -62,7 +76,7 @@ def cmd_train(args: argparse.Namespace) -> int:
                   f"expected calibration error is {hold['ece_before']:.3f} raw, {hold['ece_after']:.3f} calibrated.")
         sc = meas.scorecard
         which = "newest" if meas.split.get("kind") == "time" else "randomly chosen (no arrival times)"
-        out.print(f"On the {which} {meas.split['test_items']} items (not used to fit): accuracy {pct(sc.accuracy)}, "
+        out.print(f"On the {which} {count(meas.split['test_items'])} items (not used to fit): accuracy {pct(sc.accuracy)}, "
                   f"auto-routed {pct(sc.coverage)} at precision {pct(sc.auto_precision)}. `triage evaluate` "
                   "shows the full scorecard.")
         layer = c.get("score_layer") or {}
@@ -95,7 +109,7 @@ def cmd_evaluate(args: argparse.Namespace) -> int:
             return 0
         sp = meas.split
         if sp["kind"] == "kfold":
-            out.print(f"Stratified {sp['folds']}-fold: every one of the {sp['test_items']} labelled items decided by "
+            out.print(f"Stratified {sp['folds']}-fold: every one of the {count(sp['test_items'])} labelled items decided by "
                       "a model, calibration and cutoffs fitted without it (cutoff column: median over folds).")
         else:
             out.print(split_line(sp))
@@ -125,16 +139,19 @@ def cmd_tune(args: argparse.Namespace) -> int:
             emit_json({"settings": [r.to_dict() for r in rows], "adopted": rows[0].to_dict() if args.adopt else None,
                         "changes": [{"key": k, "old": a, "new": b} for k, a, b in changes]})
             return 0
-        t = Table(title=f"{len(rows)} settings, {args.folds}-fold cross-validation, best first (auto-routed at "
-                  "target, then macro-F1, then log loss)", title_justify="left")
+        t = Table(title=f"{len(rows)} settings, {args.folds}-fold cross-validation, best first: auto-routed at the "
+                  f"targets, then {MACRO_F1}, then log loss (lower is better)", title_justify="left",
+                  box=box.SIMPLE_HEAD, show_edge=False, padding=(0, 0))
         # every setting that differs between rows gets a column; the ones all rows share are said once below
         settings = {"text model": lambda r: r.text_model, "alpha": lambda r: f"{r.alpha_text:g}",
                     "bigrams": lambda r: "yes" if r.bigrams else "no", "fields": lambda r: "yes" if r.fields else "no",
                     "transforms": lambda r: "yes" if r.transforms else "no",
-                    "weights": lambda r: " ".join(f"{n}={w:g}" for n, w in r.text_weights.items())}
+                    "weights": lambda r: ", ".join(f"{n} {w:g}" for n, w in r.text_weights.items())}
         differ = [name for name, get in settings.items() if len({get(r) for r in rows}) > 1]
-        for col in (*differ, "accuracy", "macro-F1", "log loss", "auto-routed at target"):
-            t.add_column(col, justify="left" if col == "text model" else "right")
+        for col in (*differ, "accuracy", AVG_F1.replace(" ", "\n"), "log\nloss", "auto-\nrouted"):
+            t.add_column("trans-\nforms" if col == "transforms" else col,
+                         justify="left" if col in ("text model", "weights") else "right",
+                         no_wrap=col != "weights", min_width=8 if col == "weights" else None)
         for r in rows[: args.top]:
             t.add_row(*(settings[c](r) for c in differ),
                       pct(r.accuracy), f"{r.macro_f1:.3f}", f"{r.log_loss:.3f}", pct(r.coverage))
@@ -142,10 +159,13 @@ def cmd_tune(args: argparse.Namespace) -> int:
         same = [f"{name} {get(rows[0])}" for name, get in settings.items() if name not in differ]
         if same:
             out.print("Every row: " + ", ".join(same) + ".", markup=False)
+        if args.adopt:
+            out.print("Saved in triage.toml:" if changes else "triage.toml already holds these settings.")
         for key, old, new in changes:
-            out.print(f"  {key}: {old!r} -> {new!r}", markup=False)
+            out.print(f"  {key}: was {plain(old)}, now {plain(new)}", markup=False)
         best = rows[0]
-        verb = "Adopted into triage.toml; run `triage train`." if args.adopt else "Adopt it with `triage tune --adopt`."
+        verb = ("`triage train` now trains with them." if args.adopt
+                else "Save these settings in triage.toml with `triage tune --adopt`.")
         out.print(f"Recommended: {best.text_model}, alpha {best.alpha_text:g}, bigrams "
                   f"{'on' if best.bigrams else 'off'}. {verb}")
     return 0
@@ -159,12 +179,12 @@ def cmd_lift(args: argparse.Namespace) -> int:
     if args.json:
         emit_json(data)
         return 0
-    t = Table(title=f"Lift for {data['queue']} by decile of its score ({data['items']} newest items, "
-              f"{data['positives']} in the queue)", title_justify="left")
+    t = Table(title=f"Lift for {data['queue']} by decile of its score ({count(data['items'])} newest items, "
+              f"{count(data['positives'])} in the queue)", title_justify="left")
     for col in ("decile", "items", "in queue", "rate", "lift", "cumulative gain"):
         t.add_column(col, justify="right")
     for d in data["deciles"]:
-        t.add_row(str(d["bin"]), str(d["n"]), str(d["positives"]), pct(d["rate"]), f"{d['lift']:.2f}",
+        t.add_row(str(d["bin"]), count(d["n"]), count(d["positives"]), pct(d["rate"]), f"{d['lift']:.2f}",
                   pct(d["cumulative_gain"]))
     out.print(t)
     out.print(f"The top 10% by score holds {pct(data['captured_top_10'])} of the queue; the top 20% holds "
@@ -186,13 +206,13 @@ def cmd_independence(args: argparse.Namespace) -> int:
             return 0
         t = Table(title=f"{res['a']} and {res['b']}: apart vs merged into {res['field']} ({res['levels']} levels), "
                   f"{res['folds']}-fold cross-validation", title_justify="left")
-        for col in ("fields", "accuracy", "macro-F1", "log loss"):
+        for col in ("fields", "accuracy", MACRO_F1, "log loss (lower is better)"):
             t.add_column(col, justify="left" if col == "fields" else "right")
         for key in ("apart", "merged"):
             r = res[key]
             t.add_row(key, pct(r["accuracy"]), f"{r['macro_f1']:.4f}", f"{r['log_loss']:.4f}")
         out.print(t)
-        out.print("Merging helps (lower log loss, macro-F1 no worse): add the joint field to the export."
+        out.print(f"Merging helps (lower log loss, {AVG_F1} no worse): add the joint field to the export."
                   if res["merge_helps"] else "Merging does not help on these items: keep the fields apart.")
         return 0
     if args.json:
@@ -201,13 +221,13 @@ def cmd_independence(args: argparse.Namespace) -> int:
     t = Table(title="Dependence between predictors given the queue (conditional mutual information)",
               title_justify="left")
     for col in ("a", "b", "CMI (nats)", "flag"):
-        t.add_column(col)
+        t.add_column(col, justify="right" if col.startswith("CMI") else "left")
     for r in rows[:20]:
         t.add_row(r["a"], r["b"], f"{r['cmi_nats']:.4f}", "double-counts evidence" if r["flagged"] else "")
     out.print(t)
     n = sum(r["flagged"] for r in rows)
-    out.print(f"{n} flagged pair(s) (CMI > {tuning.CMI_FLAG} nats). A flagged pair of fields could be merged into "
-              "one joint field in the export.")
+    out.print(f"CMI is in {NATS}. {n} flagged pair(s) (CMI above {tuning.CMI_FLAG} nats). A flagged pair of fields "
+              "could be merged into one joint field in the export.", markup=False)
     for r in rows:
         if r["flagged"] and not r["a"].startswith("word ") and not r["b"].startswith("word "):
             out.print(f"  check the merge: triage independence --try-merge {r['a']} {r['b']}", markup=False)

@@ -63,6 +63,7 @@ def _finite_diff(x: np.ndarray, y: np.ndarray) -> np.ndarray:
 
 
 LAYER_OFFSET = "score layer (queue offset)"
+BASE_RATE = "base rate"  # the prior: how common each queue is, before any word or field is read
 ABSENT_WORDS = "words the item lacks"
 
 
@@ -86,7 +87,7 @@ def _explain_through_layer(model: NaiveBayes, item: EncodedItem, jll: np.ndarray
     assert layer is not None
     u = layer.direction(a, b)
     base = model.base_scores_one(item)
-    terms = [Contribution("prior", "queue size (prior)", float(_project(u, model.log_prior_)))]
+    terms = [Contribution("prior", BASE_RATE, float(_project(u, model.log_prior_)))]
     used = np.where(np.isfinite(model.log_prior_), model.log_prior_, 0.0)
     ids, counts = item.token_ids, item.token_counts
     if ids.size:
@@ -123,7 +124,7 @@ def explain(model: NaiveBayes, item: EncodedItem, top: int | None = None, runner
     if model.layer_active:
         return _explain_through_layer(model, item, jll, a, b)
     terms: list[Contribution] = []
-    terms.append(Contribution("prior", "queue size (prior)",
+    terms.append(Contribution("prior", BASE_RATE,
                               float(_finite_diff(model.log_prior_[a:a + 1], model.log_prior_[b:b + 1])[0])))
     ids, counts = item.token_ids, item.token_counts
     terms_text = model.encoder.terms_
@@ -257,7 +258,7 @@ def _pick(model: NaiveBayes, n: int, k: int, kinds: list[np.ndarray], weights: l
         elif kd == 4:
             item = Contribution("layer", LAYER_OFFSET, w)
         else:
-            item = Contribution("prior", "queue size (prior)", w)
+            item = Contribution("prior", BASE_RATE, w)
         out[int(owner[i])].append(item)
     return out
 
