@@ -59,7 +59,7 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("file", help="the file to import; rejected rows go to FILE.rejects.csv beside it")
     add_engine_options(add("train", cmd_train, "train a new model version on every labelled item and activate it"))
     sp = add("evaluate", cmd_evaluate, "score the active settings on the newest items: confusion matrix, per-queue "
-             "precision/recall at the cutoffs, coverage, reliability of the confidences")
+             "precision/recall at the cutoffs, the share auto-routed, reliability of the confidences")
     sp.add_argument("--split", choices=["time", "kfold"], default="time",
                     help="time: score the newest 20%% of items (default); kfold: every item by stratified k-fold")
     sp.add_argument("--folds", type=int, default=5, help="folds for --split kfold (default 5)")
@@ -89,10 +89,10 @@ def build_parser() -> argparse.ArgumentParser:
     sp.add_argument("value", help="a confidence between 0 and 1, or none to auto-route nothing")
     sp.add_argument("--by", help="who set it (default as for correct)")
     add("overview", cmd_overview, "items, queues, the active model and the latest routing run, in one view")
-    sp = add("tune", cmd_tune, "compare model settings by cross-validation, side by side; --adopt the best")
+    sp = add("tune", cmd_tune, "compare model settings by cross-validation, side by side; --adopt saves the best")
     sp.add_argument("--folds", type=int, default=5, help="cross-validation folds (default 5)")
     sp.add_argument("--top", type=int, default=15, help="rows to show (default 15)")
-    sp.add_argument("--adopt", action="store_true", help="write the best setting into triage.toml")
+    sp.add_argument("--adopt", action="store_true", help="save the best settings in triage.toml")
     sp = add("lift", cmd_lift, "lift and cumulative gains by decile of one queue's score (ranking leads)")
     sp.add_argument("queue", help="the queue to rank for, e.g. enterprise")
     sp = add("independence", cmd_independence, "check which predictors double-count evidence given the queue")
