@@ -202,7 +202,7 @@ def render_overview(data: dict[str, Any], console: Console = out) -> None:
     if run:
         say(f"Latest routing run {run['id']} ({run.get('source')}): {count(run.get('routed'))} of "
             f"{count(run.get('n'))} auto-routed, {count(run.get('held'))} held for review; unseen-word share "
-            f"{pct(run.get('unseen_word_share'))}, queue-mix shift (PSI) {_num(run.get('queue_mix_psi'))}"
+            f"{pct(run.get('unseen_word_share'))}, queue-mix PSI {_num(run.get('queue_mix_psi'))}"
             f"{' (drift flagged)' if run.get('drift_flag') else ''}.")
     else:
         say("No routing run yet: `triage route FILE` decides a file of new items.")
