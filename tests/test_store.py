@@ -29,7 +29,7 @@ from triage.store import (
     UnknownItemError,
     UnknownVersionError,
 )
-from triage.store.db import migrate
+from triage.store.opening import migrate
 
 REPO = Path(__file__).resolve().parents[1]
 

@@ -119,12 +119,16 @@ def _fit(ws: Workspace, engine: Engine, recs: list[ItemRecord], say: Progress,
                     0.05 + 0.05 * i / len(specs))
 
             older_labels = labels[: len(older)]
-            jlls = history.out_of_fold_jll(specs, stratified_folds(older_labels, 3), before_each=step)
+            folds = stratified_folds(older_labels, 3)
             queues = history.queues("older")
             rules = cutoff_rules(ws.config, queues)  # one criterion with tune: selection.ranked
-            scores = [SettingScore(spec, *score_jll(jll, queues, older_labels),
-                                   coverage_at_targets(jll, queues, older_labels, rules))
-                      for spec, jll in zip(specs, jlls, strict=True)]
+
+            def scored(spec: ModelSpec, jll: np.ndarray) -> SettingScore:
+                return SettingScore(spec, *score_jll(jll, queues, older_labels),
+                                    coverage_at_targets(jll, queues, older_labels, rules))
+
+            jlls = history.out_of_fold_jll(specs, folds, before_each=step)
+            scores = [scored(spec, jll) for spec, jll in zip(specs, jlls, strict=True)]
             best = best_setting(scores, len(older_labels))
             if m.bigrams == "auto":
                 # the best setting once more with word pairs (a second tokenisation; the grid stays on words):
@@ -136,9 +140,7 @@ def _fit(ws: Workspace, engine: Engine, recs: list[ItemRecord], say: Progress,
                 with_pairs = History(engine, ws.config.schema, paired, [r.fields for r in ordered], labels,
                                      n_older=len(older))
                 try:
-                    jll = with_pairs.out_of_fold_jll([paired], stratified_folds(older_labels, 3))[0]
-                    scores.append(SettingScore(paired, *score_jll(jll, queues, older_labels),
-                                               coverage_at_targets(jll, queues, older_labels, rules)))
+                    scores.append(scored(paired, with_pairs.out_of_fold_jll([paired], folds)[0]))
                 except BaseException:
                     with_pairs.close()
                     raise

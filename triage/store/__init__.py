@@ -1,23 +1,17 @@
 """SQLite store: items, label history, the corrections journal, decisions and model versions."""
 
-from triage.store.db import (
-    Batch,
-    Correction,
-    Decision,
+from triage.store.db import Store
+from triage.store.errors import (
     DuplicateRequestError,
-    ImportSummary,
-    LabelConflict,
-    ModelVersion,
-    Store,
     StoreBusyError,
     StoreError,
     StoreFullError,
     UnknownCorrectionError,
     UnknownItemError,
     UnknownVersionError,
-    utc_now,
 )
 from triage.store.migrations import LATEST_VERSION, MIGRATIONS
+from triage.store.rows import Batch, Correction, Decision, ImportSummary, LabelConflict, ModelVersion, utc_now
 
 __all__ = [
     "LATEST_VERSION",

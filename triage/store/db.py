@@ -13,45 +13,10 @@ connection and transactions of `base`; the records live in `rows`, the errors in
 from __future__ import annotations
 
 from triage.store.decisions import DecisionLog
-from triage.store.errors import (
-    DuplicateRequestError,
-    StoreBusyError,
-    StoreError,
-    StoreFullError,
-    UnknownCorrectionError,
-    UnknownItemError,
-    UnknownVersionError,
-    store_error,
-)
 from triage.store.items import ItemTables
 from triage.store.journal import CorrectionJournal
-from triage.store.migrations import LATEST_VERSION
-from triage.store.opening import migrate
-from triage.store.rows import Batch, Correction, Decision, ImportSummary, LabelConflict, ModelVersion, utc_now
 from triage.store.versions import VersionTable
 
 
 class Store(ItemTables, CorrectionJournal, DecisionLog, VersionTable):
     """The workspace's SQLite database. Open with `Store.open(path)`; use as a context manager."""
-
-
-__all__ = [
-    "LATEST_VERSION",
-    "Batch",
-    "Correction",
-    "Decision",
-    "DuplicateRequestError",
-    "ImportSummary",
-    "LabelConflict",
-    "ModelVersion",
-    "Store",
-    "StoreBusyError",
-    "StoreError",
-    "StoreFullError",
-    "UnknownCorrectionError",
-    "UnknownItemError",
-    "UnknownVersionError",
-    "migrate",
-    "store_error",
-    "utc_now",
-]
